@@ -1,0 +1,114 @@
+"""Unit strings at the edges: parse "15 mm", "0.017 lb/h/A" with pint, hand SI floats inward."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import pint
+
+__all__ = ["UnitError", "registry", "to_si", "si_unit_of", "DIMENSIONS"]
+
+
+class UnitError(ValueError):
+    """A unit string that cannot be parsed or has the wrong dimension."""
+
+
+@lru_cache(maxsize=1)
+def registry() -> pint.UnitRegistry:
+    """The one pint registry of the program (created lazily; creating one costs ~0.1 s)."""
+    ureg = pint.UnitRegistry()
+    return ureg
+
+
+#: Named dimensions the config uses, with the SI unit each is converted to.
+DIMENSIONS: dict[str, str] = {
+    "length": "m",
+    "current": "A",
+    "voltage": "V",
+    "speed": "m/s",
+    "time": "s",
+    "density": "kg/m**3",
+    "melt_a": "kg/s/A",
+    "melt_b": "kg/s/m/A**2",
+    "mass_rate": "kg/s",
+    "dimensionless": "",
+}
+
+_EXAMPLES: dict[str, str] = {
+    "length": '"15 mm" or "0.6 in"',
+    "current": '"220 A"',
+    "voltage": '"24 V"',
+    "speed": '"8 mm/s", "9 m/min" or "20 in/min"',
+    "time": '"0.5 s"',
+    "density": '"7.85 g/cm**3"',
+    "melt_a": '"0.017 lb/h/A" or "7.7e-3 kg/h/A"',
+    "melt_b": '"0.00014 lb/h/in/A**2" or "3e-6 kg/h/mm/A**2"',
+    "mass_rate": '"5 kg/h"',
+    "dimensionless": '"0.01"',
+}
+
+
+def si_unit_of(dimension: str) -> str:
+    """The SI unit string a named dimension is converted to."""
+    return DIMENSIONS[dimension]
+
+
+def to_si(text: object, dimension: str) -> float:
+    """Parse a quantity string and return its magnitude in the SI unit of ``dimension``.
+
+    Parameters
+    ----------
+    text : str or number
+        A quantity with its unit, e.g. ``"15 mm"``. A bare number is accepted only for
+        ``dimension="dimensionless"``.
+    dimension : str
+        One of :data:`DIMENSIONS`.
+
+    Returns
+    -------
+    float
+        The magnitude in SI units.
+
+    Raises
+    ------
+    UnitError
+        With a message saying what was found and what was expected (no traceback material).
+    """
+    target = DIMENSIONS[dimension]
+    example = _EXAMPLES[dimension]
+    if isinstance(text, bool):
+        raise UnitError(f"{text!r} is not a {dimension} (use e.g. {example})")
+    if isinstance(text, (int, float)):
+        if dimension == "dimensionless":
+            return float(text)
+        raise UnitError(f"{text!r} has no unit; expected a {dimension} (use e.g. {example})")
+    if not isinstance(text, str):
+        raise UnitError(f"{text!r} is not a {dimension} (use e.g. {example})")
+    if "," in text:
+        raise UnitError(f'"{text}" is not a {dimension}: use a decimal point, not a comma (e.g. {example})')
+    ureg = registry()
+    try:
+        q = ureg.Quantity(text.strip())
+    except Exception:
+        raise UnitError(f'"{text}" is not a {dimension} (use e.g. {example})') from None
+    if not isinstance(q, pint.Quantity):  # a bare number string
+        if dimension == "dimensionless":
+            return float(q)
+        raise UnitError(f'"{text}" has no unit; expected a {dimension} (use e.g. {example})')
+    try:
+        value = q.to(target).magnitude if target else q.to("dimensionless").magnitude
+    except Exception:
+        raise UnitError(f'"{text}" is not a {dimension} (use e.g. {example})') from None
+    value = float(value)
+    if value != value or value in (float("inf"), float("-inf")):
+        raise UnitError(f'"{text}" is not a finite {dimension}')
+    return value
+
+
+def scale_to_si(unit: str, dimension: str) -> float:
+    """Factor that converts values expressed in ``unit`` to the SI unit of ``dimension``.
+
+    Used for log columns: ``current_ka * scale_to_si("kA", "current") -> A``. Offset units
+    (°C) are not accepted; no log channel here needs them.
+    """
+    return to_si(f"1 {unit}", dimension)
