@@ -28,6 +28,7 @@ These charts are screening indicators of drift, not weld acceptance; see the pac
 
 from __future__ import annotations
 
+from itertools import pairwise
 from typing import NamedTuple
 
 import numpy as np
@@ -36,14 +37,14 @@ from scipy import signal, stats
 
 __all__ = [
     "D2_N2",
-    "moving_range_sigma",
-    "ewma_chart",
-    "cusum_chart",
     "ArlEstimate",
     "cusum_arl",
+    "cusum_chart",
     "ewma_arl",
-    "theil_sen_trend",
+    "ewma_chart",
+    "moving_range_sigma",
     "parts_to_limit",
+    "theil_sen_trend",
 ]
 
 #: d2 for subgroups of n = 2: E[|X1 − X2|] / σ for independent normals (= 2/√π ≈ 1.1284).
@@ -72,7 +73,7 @@ def _segments(reset: np.ndarray) -> list[tuple[int, int]]:
     n = reset.size
     starts = np.flatnonzero(reset[1:]) + 1 if n > 1 else np.empty(0, dtype=np.intp)
     bounds = np.concatenate(([0], starts, [n])).astype(np.intp)
-    return [(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+    return [(int(a), int(b)) for a, b in pairwise(bounds) if b > a]
 
 
 def _first_index(mask: np.ndarray) -> int | None:
@@ -163,6 +164,8 @@ def ewma_chart(
     a = _as_1d(x)
     if not 0.0 < lam <= 1.0:
         raise ValueError(f"lam must be in (0, 1], got {lam}")
+    if sigma <= 0 or not np.isfinite(sigma):
+        raise ValueError(f"sigma must be a positive finite number, got {sigma}")
     r = _reset_mask(reset, a.size)
     finite = np.isfinite(a)
     z = np.empty_like(a)
