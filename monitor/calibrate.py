@@ -333,7 +333,9 @@ def fit_melt_coefficients(mr: ArrayLike, i_mean: ArrayLike, i_sq_mean: ArrayLike
             f"all reference seams were run at one CTWD{shown}; weld at two or more CTWDs at least 5 mm apart"
         )
     if n < 4:
-        raise CalibrationError(f"need at least 4 reference seams to fit A and B with an error estimate (got {n})")
+        raise CalibrationError(
+            f"need at least 4 reference seams to fit A and B with an error estimate (got {n})"
+        )
 
     x = np.column_stack([i, L * q])
     beta, cov, resid, s, cond = _ols(x, mr)
@@ -361,7 +363,9 @@ def fit_melt_coefficients(mr: ArrayLike, i_mean: ArrayLike, i_sq_mean: ArrayLike
             f"{MAX_CONDITION_NUMBER:.0f}); A and B are strongly confounded"
         )
     if b <= 0 or a <= 0:
-        warns.append(f"fitted A = {a:.3g} kg/(s·A), B = {b:.3g} kg/(s·m·A²): a non-positive coefficient is unphysical")
+        warns.append(
+            f"fitted A = {a:.3g} kg/(s·A), B = {b:.3g} kg/(s·m·A²): a non-positive coefficient is unphysical"
+        )
     return MeltFit(
         a=a,
         b=b,
@@ -492,13 +496,24 @@ def simulate_reference_runs(
 
 
 def _penetration_inputs(
-    depth: ArrayLike, current: ArrayLike, voltage: ArrayLike, travel_speed: ArrayLike,
-    ref_current: float, ref_voltage: float, ref_travel_speed: float,
+    depth: ArrayLike,
+    current: ArrayLike,
+    voltage: ArrayLike,
+    travel_speed: ArrayLike,
+    ref_current: float,
+    ref_voltage: float,
+    ref_travel_speed: float,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    p, i, v, s = _vectors(("depth", "current", "voltage", "travel_speed"), depth, current, voltage, travel_speed)
+    p, i, v, s = _vectors(
+        ("depth", "current", "voltage", "travel_speed"), depth, current, voltage, travel_speed
+    )
     for name, x in (("depth", p), ("current", i), ("voltage", v), ("travel_speed", s)):
         _require_positive(name, x)
-    for name, r in (("ref_current", ref_current), ("ref_voltage", ref_voltage), ("ref_travel_speed", ref_travel_speed)):
+    for name, r in (
+        ("ref_current", ref_current),
+        ("ref_voltage", ref_voltage),
+        ("ref_travel_speed", ref_travel_speed),
+    ):
         if not (np.isfinite(r) and r > 0):
             raise CalibrationError(f"{name}: expected a positive finite value, got {r!r}")
     return p, i, v, s
@@ -543,11 +558,17 @@ def fit_penetration_scale(
     (depth errors grow with depth) and the estimate a geometric mean. Trust it near the
     sections' conditions (current within roughly ±30 %).
     """
-    p, i, v, s = _penetration_inputs(depth, current, voltage, travel_speed, ref_current, ref_voltage, ref_travel_speed)
+    p, i, v, s = _penetration_inputs(
+        depth, current, voltage, travel_speed, ref_current, ref_voltage, ref_travel_speed
+    )
     n = len(p)
     if n < 3:
-        raise CalibrationError(f"need at least 3 macro sections to fit the reference depth with an error estimate (got {n})")
-    g = physics.jackson_penetration(i, v, s, ref_current, ref_voltage, ref_travel_speed, 1.0, JACKSON_EXPONENTS)
+        raise CalibrationError(
+            f"need at least 3 macro sections to fit the reference depth with an error estimate (got {n})"
+        )
+    g = physics.jackson_penetration(
+        i, v, s, ref_current, ref_voltage, ref_travel_speed, 1.0, JACKSON_EXPONENTS
+    )
     z = np.log(p) - np.log(g)
     c0 = float(z.mean())
     log_resid = z - c0
@@ -615,7 +636,9 @@ def fit_penetration_exponents(
     """
     if not 0.0 < alpha < 1.0:
         raise CalibrationError(f"alpha: expected a value between 0 and 1, got {alpha!r}")
-    p, i, v, s = _penetration_inputs(depth, current, voltage, travel_speed, ref_current, ref_voltage, ref_travel_speed)
+    p, i, v, s = _penetration_inputs(
+        depth, current, voltage, travel_speed, ref_current, ref_voltage, ref_travel_speed
+    )
     n = len(p)
     if n < 6:
         raise CalibrationError(
@@ -629,7 +652,9 @@ def fit_penetration_exponents(
     warns: list[str] = []
     for name, sp, h, e in zip(_REGRESSOR_NAMES, spreads, held, JACKSON_EXPONENTS, strict=True):
         if h:
-            warns.append(f"{name} did not vary across the sections; its exponent is held at Jackson's {e:+.3f}, not fitted")
+            warns.append(
+                f"{name} did not vary across the sections; its exponent is held at Jackson's {e:+.3f}, not fitted"
+            )
         elif sp < MIN_LOG_SPREAD:
             warns.append(
                 f"{name} varies by only {np.expm1(sp):.0%} across the sections (ln spread {sp:.2f} < "
@@ -665,7 +690,11 @@ def fit_penetration_exponents(
         log_ref_depth_se=c0_se,
         exponents=(float(exps[0]), float(exps[1]), float(exps[2])),
         exponents_se=(float(exps_se[0]), float(exps_se[1]), float(exps_se[2])),
-        exponents_ci=((float(lo[0]), float(hi[0])), (float(lo[1]), float(hi[1])), (float(lo[2]), float(hi[2]))),
+        exponents_ci=(
+            (float(lo[0]), float(hi[0])),
+            (float(lo[1]), float(hi[1])),
+            (float(lo[2]), float(hi[2])),
+        ),
         jackson_inside=all(f for f in inside if f is not None),
         current_inside=inside[0],
         voltage_inside=inside[1],
