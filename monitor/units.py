@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
+import re
 from functools import lru_cache
 
 import pint
 
 __all__ = ["UnitError", "registry", "to_si", "si_unit_of", "DIMENSIONS"]
+
+
+_NUMBER_FIRST = re.compile(r"^\s*[-+]?(\d|\.\d)")
 
 
 class UnitError(ValueError):
@@ -84,6 +88,8 @@ def to_si(text: object, dimension: str) -> float:
         raise UnitError(f"{text!r} has no unit; expected a {dimension} (use e.g. {example})")
     if not isinstance(text, str):
         raise UnitError(f"{text!r} is not a {dimension} (use e.g. {example})")
+    if not _NUMBER_FIRST.match(text):
+        raise UnitError(f'"{text}" is not a {dimension}: a number then a unit is expected (e.g. {example})')
     if "," in text:
         raise UnitError(f'"{text}" is not a {dimension}: use a decimal point, not a comma (e.g. {example})')
     ureg = registry()
