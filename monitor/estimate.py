@@ -88,9 +88,8 @@ def estimate(agg: pl.DataFrame, cfg: Config) -> pl.DataFrame:
         )
         pen = physics.jackson_penetration(
             i_mean, v_mean, travel, prm["ref_current"], prm["ref_voltage"], prm["ref_travel_speed"],
-            prm["ref_depth"], (0.0, 0.0, 0.0),
-        ) * (i_mean / prm["ref_current"]) ** prm["exp_i"] * (v_mean / prm["ref_voltage"]) ** prm["exp_v"] \
-            * (travel / prm["ref_travel_speed"]) ** prm["exp_s"]
+            prm["ref_depth"], exponents=(prm["exp_i"], prm["exp_v"], prm["exp_s"]),
+        )
         # relative variance of P: exponents times relative gain errors, plus the reference's own
         rel_var_pen = (prm["exp_i"] * sens.current) ** 2 + (prm["exp_v"] * sens.voltage) ** 2 \
             + (prm["ref_depth_se"] / prm["ref_depth"]) ** 2

@@ -198,7 +198,7 @@ def jackson_penetration(
     ref_voltage: ArrayLike,
     ref_travel_speed: ArrayLike,
     ref_depth: ArrayLike,
-    exponents: tuple[float, float, float] = (4.0 / 3.0, -2.0 / 3.0, -1.0 / 3.0),
+    exponents: tuple[ArrayLike, ArrayLike, ArrayLike] = (4.0 / 3.0, -2.0 / 3.0, -1.0 / 3.0),
 ) -> np.ndarray:
     """Penetration by Jackson's relation, scaled through one measured reference section.
 
@@ -219,9 +219,9 @@ def jackson_penetration(
         The reference section's welding conditions [A], [V], [m/s].
     ref_depth : array_like
         Penetration measured on the reference macro section [m].
-    exponents : tuple of float, optional
-        Exponents of current, voltage and travel speed; Jackson's (4/3, −2/3, −1/3) by
-        default. A calibration with free exponents may supply others.
+    exponents : tuple of three array_like, optional
+        Exponents of current, voltage and travel speed [-]; Jackson's (4/3, −2/3, −1/3) by
+        default. A calibration with free exponents may supply others (per seam, as arrays).
 
     Returns
     -------
