@@ -3,15 +3,16 @@
     python calibration_demo/make_calibration.py      # rewrites the files in calibration_demo/
 
 Scenario (invented): before trusting the alarms, the engineer of demo cell 3 welds twelve
-coupon seams with the cell's own 1.0 mm steel wire: four CTWDs (12, 15, 18, 21 mm, set with a
-gauge, each off by about 0.15 mm in reality) at three wire feed speeds (7, 9 and
-11 m/min), one log file per feed speed. The wire on this cell melts a little differently from
-the illustrative coefficients in config/wires.toml (A 3 % higher, B 8 % higher: a new wire lot),
-which is what the calibration should find (the demo night's logs were welded with the old lot). Separately, eight TB7 brackets from the demo night were sectioned and
-their penetration measured (depths simulated from Jackson's relation with a 3.1 mm reference
-and 4 % scatter), for ``ctwd calibrate-penetration``.
+coupon seams with a new lot of 1.0 mm steel wire: four CTWDs (12, 15, 18, 21 mm, set with a
+gauge, each off by about 0.15 mm in reality) at three wire feed speeds (7, 9 and 11 m/min),
+one log file per feed speed. The new lot melts a little differently from the illustrative
+coefficients in config/wires.toml (A 3 % higher, B 8 % higher), which is what the calibration
+should find; the demo night's logs were welded with the old lot. Separately, eight TB7
+brackets from the demo night were sectioned and their penetration measured (depths simulated
+from Jackson's relation through a 3.1 mm reference, 4 % scatter), for
+``ctwd calibrate-penetration``.
 
-Deterministic (seeded). Files: logs/cal_wfs07.parquet, cal_wfs09.parquet, cal_wfs11.parquet,
+Deterministic (seeded). Files: logs/cal_wfs07.parquet, logs/cal_wfs09.parquet, logs/cal_wfs11.parquet,
 known_ctwd.csv, tb7_sections.csv.
 """
 
