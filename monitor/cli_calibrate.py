@@ -235,7 +235,7 @@ def _melt_plot(png: Path, wire: str, fit: MeltFit, mr, i, q, L) -> None:
 @click.option("--config", "config_dir", required=True, type=click.Path(path_type=Path),
               help="Config folder (cell.toml for the export mapping, wires.toml for the wire).")
 @click.option("--out", "out_file", default=None, type=click.Path(path_type=Path, dir_okay=False),
-              help="Write the fitted [wire.\"NAME\"] table to this TOML file (the plot goes beside it).")
+              help="Write the fitted [wire.\"NAME\"] table to this TOML file (the plot goes beside it, as .png).")
 @click.option("--write", "write_config", is_flag=True, help="Update wires.toml in place (old file kept as wires.toml.bak).")
 def calibrate(logs: tuple[Path, ...], known_csv: Path, unit: str | None, wire: str, config_dir: Path,
               out_file: Path | None, write_config: bool) -> None:
@@ -305,8 +305,10 @@ def calibrate(logs: tuple[Path, ...], known_csv: Path, unit: str | None, wire: s
         out_file.parent.mkdir(parents=True, exist_ok=True)
         out_file.write_text(text, encoding="utf-8")
         click.echo(f"wrote {out_file}")
+    # the plot goes beside the output: the --out file, else wires.toml (--write), else here
+    stem = f"calibration_{re.sub(r'[^A-Za-z0-9._-]+', '_', wire)}.png"
     png = (out_file.with_suffix(".png") if out_file is not None
-           else Path.cwd() / f"calibration_{re.sub(r'[^A-Za-z0-9._-]+', '_', wire)}.png")
+           else config_dir / stem if write_config else Path.cwd() / stem)
     _melt_plot(png, wire, fit, mr, i, q, L)
     click.echo(f"plot:  {png}")
     if write_config:

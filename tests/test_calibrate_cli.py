@@ -147,6 +147,7 @@ def test_calibrate_write_keeps_comments_and_backup(tmp_path):
     assert w.melt_a == pytest.approx(A_CHECK, rel=0.02) and w.melt_b == pytest.approx(B_CHECK, rel=0.02)
     assert w.melt_a_se > 0 and w.calibrated_on is not None
     assert 'melt_a = "' in after and "# arc term" in after.split('[wire."steel-0.035"]')[1]
+    assert (cfg / "calibration_steel-0.035.png").is_file()  # the plot beside the edited wires.toml
 
 
 def test_scan_ctwd_interval_widens_with_coefficient_covariance(tmp_path):
