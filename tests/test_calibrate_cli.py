@@ -329,3 +329,36 @@ def test_baseline_config_errors_are_one_line(tmp_path):
         with pytest.raises(ConfigError) as exc:
             load_config(cfg)
         assert expect in str(exc.value) and "\n" not in str(exc.value)
+
+
+# ---------------------------------------------------------------------------------------------
+# text editing of one TOML table (tomllib, the standard library's TOML 1.0 parser, is the reference)
+
+
+def test_set_table_values_edits_only_that_table():
+    from datetime import date
+
+    from monitor.toml_edit import set_table_values, unit_of
+
+    text = ('# head\n[wire."a"]\nmelt_a = "1 kg/h/A"  # keep me\n\n# between\n[wire."b b"]\n'
+            'melt_a = "2 lb/h/A" # b\nnote = "x # not a comment"\n[[seam]]\nname = "S1"\n')
+    new = set_table_values(text, ("wire", "b b"), {"melt_a": "3 lb/h/A", "reference_seams": 7,
+                                                  "calibrated_on": date(2026, 12, 1), "note": "y"})
+    parsed = tomllib.loads(new)
+    assert parsed["wire"]["b b"] == {"melt_a": "3 lb/h/A", "note": "y", "reference_seams": 7,
+                                     "calibrated_on": date(2026, 12, 1)}
+    assert parsed["wire"]["a"] == tomllib.loads(text)["wire"]["a"] and parsed["seam"] == [{"name": "S1"}]
+    assert new.startswith('# head\n[wire."a"]\nmelt_a = "1 kg/h/A"  # keep me\n\n# between\n')
+    assert 'melt_a = "3 lb/h/A" # b\n' in new
+    # a table the file lacks is appended; the rest is byte-identical
+    added = set_table_values(text, ("wire", "c"), {"melt_a": "4 kg/h/A"})
+    assert added.startswith(text) and tomllib.loads(added)["wire"]["c"] == {"melt_a": "4 kg/h/A"}
+    assert unit_of("7.8e-3 kg/h/A") == "kg/h/A" and unit_of("0.00014 lb/h/in/A**2") == "lb/h/in/A**2"
+
+
+def test_set_table_values_refuses_a_multiline_value():
+    from monitor.toml_edit import TomlEditError, set_table_values
+
+    text = "[penetration_reference]\nexponents = [\n  1.3,\n  -0.6,\n  -0.3,\n]\n"
+    with pytest.raises(TomlEditError, match="spans several lines"):
+        set_table_values(text, ("penetration_reference",), {"exponents": [1.0, -0.5, -0.3]})
