@@ -191,5 +191,10 @@ def demo(out_dir: Path) -> None:
     click.echo(f"open {(out_dir / 'summary.html').resolve().as_uri()} in a browser")
 
 
+from monitor.cli_calibrate import calibrate, calibrate_penetration  # noqa: E402
+
+main.add_command(calibrate)
+main.add_command(calibrate_penetration)
+
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -15,6 +15,7 @@ import hashlib
 import re
 import tomllib
 from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -27,6 +28,7 @@ __all__ = [
     "Wire",
     "SeamSpec",
     "PenetrationReference",
+    "Baseline",
     "Part",
     "CellConfig",
     "Config",
@@ -93,6 +95,24 @@ class PenetrationReference:
 
 
 @dataclass(frozen=True)
+class Baseline:
+    """Baseline zeroing of a part: the first ``seams`` good seams after each tip change are taken
+    to be at nominal CTWD and a current-gain correction is solved from them.
+
+    Tip changes come from ``tip_changes`` (a CSV with a ``time`` column of ISO-8601 UTC times, or
+    a ``serial`` column: the first seam of that serial follows a new tip), from a detected step
+    of at least ``detect_step`` [m] back toward nominal between consecutive seams of one seam
+    position, and always at the start of the scan.
+    """
+
+    seams: int = 5
+    tip_changes: Path | None = None
+    detect_step: float | None = None
+    tip_times: tuple[datetime, ...] = ()  # UTC, sorted, from a ``time`` column
+    tip_serials: tuple[str, ...] = ()  # from a ``serial`` column
+
+
+@dataclass(frozen=True)
 class Part:
     name: str
     wire: str
@@ -100,6 +120,7 @@ class Part:
     seams: dict[str, SeamSpec]
     reference: PenetrationReference
     path: Path
+    baseline: Baseline | None = None
 
     def seam(self, name: str) -> SeamSpec:
         """The spec of seam ``name``: its own entry, else the part's defaults under that name."""
@@ -347,7 +368,7 @@ def _seam_spec(t: _Table, name: str, base: SeamSpec | None) -> SeamSpec:
 def load_part(path: Path, wires: dict[str, Wire]) -> Part:
     data = _read_toml(path)
     t = _Table(path, "", data)
-    t.check_keys({"part", "wire", "penetration_reference", "seam", "note"} | _SEAM_KEYS)
+    t.check_keys({"part", "wire", "penetration_reference", "seam", "note", "baseline"} | _SEAM_KEYS)
     name = t.string("part", required=True)
     wire = t.string("wire", required=True)
     if wire not in wires:
@@ -381,7 +402,61 @@ def load_part(path: Path, wires: dict[str, Wire]) -> Part:
         if sname in seams:
             raise st.fail("name", f'"{sname}" is named twice; each seam once')
         seams[sname] = _seam_spec(st, sname, defaults)
-    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path)
+    baseline = _baseline(path, data["baseline"]) if "baseline" in data else None
+    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path, baseline=baseline)
+
+
+_BASELINE_KEYS = {"seams", "tip_changes", "detect_step", "note"}
+
+
+def _baseline(path: Path, raw: Any) -> Baseline:
+    """The [baseline] table of a part file."""
+    b = _Table(path, "[baseline]", raw)
+    b.check_keys(_BASELINE_KEYS)
+    n = b.data.get("seams", 5)
+    if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= 1000:
+        raise b.fail("seams", f"{n!r} must be a whole number of seams from 1 to 1000")
+    tips = b.string("tip_changes")
+    tip_path = None
+    if tips is not None:
+        tip_path = Path(tips) if Path(tips).is_absolute() else path.parent / tips
+        if not tip_path.is_file():
+            raise b.fail("tip_changes", f'"{tips}" not found (looked for {tip_path}); a CSV with a time or serial column')
+    step = b.quantity("detect_step", "length")
+    if step is not None and not 0.5e-3 <= step <= 30e-3:
+        raise b.fail("detect_step", f"{step * 1e3:g} mm is outside 0.5-30 mm; units?")
+    times: tuple[datetime, ...] = ()
+    serials: tuple[str, ...] = ()
+    if tip_path is not None:
+        times, serials = _read_tip_changes(tip_path)
+    return Baseline(seams=n, tip_changes=tip_path, detect_step=step, tip_times=times, tip_serials=serials)
+
+
+def _read_tip_changes(path: Path) -> tuple[tuple[datetime, ...], tuple[str, ...]]:
+    """Tip-change times (``time`` column, ISO-8601; UTC when no offset) or serials (``serial`` column)."""
+    import csv
+
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.DictReader(fh))
+            cols = [c.strip() for c in (rows[0].keys() if rows else [])]
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise ConfigError(f"{path}: cannot be read as CSV ({exc})") from None
+    rows = [{k.strip(): (v or "").strip() for k, v in r.items() if k is not None} for r in rows]
+    if "time" in cols:
+        out = []
+        for k, r in enumerate(rows, start=2):
+            if not r["time"]:
+                continue
+            try:
+                t = datetime.fromisoformat(r["time"].replace("Z", "+00:00"))
+            except ValueError:
+                raise ConfigError(f'{path}: line {k}: time "{r["time"]}" is not an ISO-8601 time') from None
+            out.append(t.replace(tzinfo=UTC) if t.tzinfo is None else t.astimezone(UTC))
+        return tuple(sorted(out)), ()
+    if "serial" in cols:
+        return (), tuple(r["serial"] for r in rows if r["serial"])
+    raise ConfigError(f'{path}: no "time" or "serial" column; columns are: {", ".join(cols) or "none"}')
 
 
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")

@@ -28,6 +28,7 @@ __all__ = [
     "melt_rate",
     "ctwd_from_melt_rate",
     "current_from_melt_rate",
+    "current_gain_at_ctwd",
     "jackson_penetration",
     "jackson_scale",
     "arc_power",
@@ -188,6 +189,45 @@ def current_from_melt_rate(
     a = np.asarray(a, dtype=np.float64)
     c = np.asarray(b, dtype=np.float64) * np.asarray(ctwd, dtype=np.float64) * np.asarray(ripple_factor, dtype=np.float64)
     return 2.0 * mr / (a + np.sqrt(a * a + 4.0 * c * mr))
+
+
+def current_gain_at_ctwd(
+    mr: ArrayLike, i_mean: ArrayLike, i_sq_mean: ArrayLike, ctwd: ArrayLike, a: ArrayLike, b: ArrayLike
+) -> np.ndarray:
+    """Current-measurement gain g that makes a seam's readings consistent with a known CTWD.
+
+    A current channel reading g times the true current gives Ī_m = g·Ī and ⟨I²⟩_m = g²·⟨I²⟩; the
+    form factor k = ⟨I²⟩_m/Ī_m² is unaffected. The true Ī at CTWD L follows from
+    :func:`current_from_melt_rate` with that k, and g = Ī_m / Ī. Dividing Ī_m by g and ⟨I²⟩_m by
+    g² then makes :func:`ctwd_from_melt_rate` return L exactly.
+
+    Parameters
+    ----------
+    mr : array_like
+        Melting rate from the wire feed [kg/s].
+    i_mean, i_sq_mean : array_like
+        Measured mean current [A] and mean squared current [A²].
+    ctwd : array_like
+        CTWD the seam is taken to have been welded at [m] (the nominal, for baseline zeroing).
+    a, b : array_like
+        Melting coefficients [kg/(s·A)], [kg/(s·m·A²)].
+
+    Returns
+    -------
+    numpy.ndarray
+        Gain g [-] (1 = the channel reads true); NaN where Ī_m is not positive.
+
+    Notes
+    -----
+    Lesnewich (1958) relation solved for current, as in :func:`current_from_melt_rate`. Valid
+    only if the seam really was at ``ctwd``: any true CTWD offset is absorbed into g.
+    """
+    i = np.asarray(i_mean, dtype=np.float64)
+    q = np.asarray(i_sq_mean, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k = q / (i * i)
+        i_true = current_from_melt_rate(mr, ctwd, a, b, k)
+        return np.where(i > 0, i / i_true, np.nan)
 
 
 def jackson_penetration(

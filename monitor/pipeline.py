@@ -110,4 +110,8 @@ def scan_paths(paths: list[Path], cfg: Config, part: str | None = None,
         if progress is not None:
             progress(f)
     seams = pl.concat(frames, how="diagonal_relaxed") if frames else pl.DataFrame()
+    if seams.height:
+        from monitor.baseline import apply_baseline  # ctwd_basis per seam; re-estimates [baseline] parts
+
+        seams = apply_baseline(seams, cfg)
     return ScanResult(seams=seams, files=records)
