@@ -147,7 +147,9 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
 @click.argument("results_dir", type=click.Path(path_type=Path, file_okay=False, exists=True))
 @click.option("--history", "history_dir", default=None, type=click.Path(path_type=Path, file_okay=False),
               help="Folder of earlier nights' results, drawn behind tonight's CTWD.")
-def report(results_dir: Path, history_dir: Path | None) -> None:
+@click.option("--max-traces", default=None, type=click.IntRange(min=0),
+              help="Draw at most this many flagged seams' traces (default 24).")
+def report(results_dir: Path, history_dir: Path | None, max_traces: int | None) -> None:
     """Rebuild summary.html from stored results (seams.parquet, files.csv, run.json)."""
     from monitor.report import render_page
     from monitor.store import atomic_write, read_seams
@@ -160,7 +162,8 @@ def report(results_dir: Path, history_dir: Path | None) -> None:
         sys.exit(EXIT_USAGE)
     files_csv = results_dir / "files.csv"
     files_df = pl.read_csv(files_csv, infer_schema=False) if files_csv.exists() else pl.DataFrame()
-    html = render_page(seams, files_df, run, results_dir / "summary.html", history=history_dir)
+    kw = {} if max_traces is None else {"max_traces": max_traces}
+    html = render_page(seams, files_df, run, results_dir / "summary.html", history=history_dir, **kw)
     atomic_write(results_dir / "summary.html", lambda p: p.write_text(html, encoding="utf-8"))
     click.echo(f"page: {results_dir / 'summary.html'}")
 

@@ -20,12 +20,13 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import polars as pl  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 __all__ = ["render_page", "ctwd_plot_svg", "penetration_plot_svg", "trace_plot_svgs", "load_history",
            "MAX_TRACES", "STYLE"]
 
 #: Traces drawn at most (flagged seams only); the rest are listed as left out.
-MAX_TRACES = 30
+MAX_TRACES = 24
 
 #: status -> (marker, colour, filled). Shapes and fills differ, so B/W print still tells them apart.
 STYLE = {
@@ -182,7 +183,9 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
     from ingest.reader import IngestError
     from ingest.trace import read_seam_trace
 
-    rows = flagged.head(max_traces).to_dicts()
+    # alarms first, then invalid seams (a dropout is what a trace shows best), then watch
+    rank = pl.col("status").replace_strict({"alarm": 0, "invalid": 1, "watch": 2}, default=3, return_dtype=pl.Int8)
+    rows = flagged.with_row_index("_i").sort([rank, "_i"]).drop("_i").head(max_traces).to_dicts()
     left_out = max(flagged.height - max_traces, 0)
     items: list[dict] = []
     if not rows:
@@ -194,7 +197,8 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
     for ax, (_ch, label, _scale, ls) in zip(axes, _TRACE_AXES):
         lines.append(ax.plot([], [], color="black", lw=0.8, ls=ls, zorder=2)[0])
         ax.set_ylabel(label)
-        ax.grid(True, lw=0.3, color="0.85")
+        ax.yaxis.set_major_locator(MaxNLocator(3))  # few ticks: axis drawing is most of a trace's cost
+        ax.xaxis.set_major_locator(MaxNLocator(8))
     axes[-1].set_xlabel("time from arc start [s]")
     title = axes[0].set_title("", fontsize=7, loc="left")
     transient: list[Any] = []
@@ -338,12 +342,14 @@ def _fmt(v: Any, spec: str = ".2f") -> str:
 
 
 def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: Path, *, cfg: Any = None,
-                history: Path | None = None, max_traces: int = MAX_TRACES, traces: bool = True) -> str:
+                history: Path | None = None, max_traces: int = MAX_TRACES, traces: bool = True,
+                charts: bool = True) -> str:
     """Render summary.html from the published seam table and files table; returns the HTML.
 
     ``cfg`` (a :class:`monitor.config.Config`) lets the page re-read flagged seams' traces; when
     None the config folder named in ``run["config_dir"]`` is tried. ``history`` is a folder of
-    earlier results for the CTWD charts (optional). ``out_path`` is where the page will be written
+    earlier results for the CTWD charts (optional). ``traces``/``charts`` False leave those
+    plots out (tests, quick looks); the tables are always complete. ``out_path`` is where the page will be written
     (used only to make file links relative).
     """
     if cfg is None and traces and run.get("config_dir"):
@@ -390,8 +396,8 @@ def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: P
         rows = [r for r in positions if r["part"] == p]
         plots.append({
             "part": p,
-            "ctwd_svg": ctwd_plot_svg(ps, p, history=hp),
-            "pen_svg": penetration_plot_svg(ps),
+            "ctwd_svg": ctwd_plot_svg(ps, p, history=hp) if charts else None,
+            "pen_svg": penetration_plot_svg(ps) if charts else None,
             "positions": rows,
             "seam_names": _seam_order(ps.get_column("seam").drop_nulls().unique().to_list()),
             "hint": _hint(rows),
