@@ -287,16 +287,19 @@ def load_history(history_dir: Path | None, tonight: pl.DataFrame) -> tuple[pl.Da
 def _hint(part_rows: list[dict]) -> str:
     """A plain-words pointer to what to check at the cell, from the per-seam-position summary."""
     off = [r for r in part_rows if r["alarm"] + r["watch"] > 0]
+    n_invalid = sum(r["invalid"] for r in part_rows)
+    extra = (f"; {n_invalid} seam{'s' if n_invalid != 1 else ''} could not be judged: check the logger and "
+             "its sense leads (reasons in the tables)") if n_invalid else ""
     if not off:
-        return "nothing to fix: every seam position within its band"
+        return "CTWD within its band on every seam position" + extra
     signs = {1 if (r["dev_recent_mm"] or 0) > 0 else -1 for r in off}
     if len(off) >= 2 and len(off) >= 0.5 * len(part_rows) and len(signs) == 1:
         if signs == {1}:
-            return ("CTWD long on most seam positions: points at the torch (worn contact tip, tip recessed, "
-                    "wire cast) rather than the path; change the tip, then check the TCP")
-        return "CTWD short on most seam positions: check the TCP / torch neck and fixture height"
+            return ("CTWD long on most seam positions: points at the torch (worn or recessed contact tip, wire "
+                    "cast) rather than the path; change the contact tip, then check the TCP" + extra)
+        return "CTWD short on most seam positions: check the TCP / torch neck and the fixture height" + extra
     names = ", ".join(r["seam"] or "?" for r in off)
-    return f"only some seam positions off ({names}): check the robot path / TCP and fixturing of those seams"
+    return f"only some seam positions off ({names}): check the robot path / TCP and fixturing of those seams" + extra
 
 
 def _position_summary(seams: pl.DataFrame) -> list[dict]:
