@@ -37,6 +37,7 @@ STYLE = {
 }
 _ORDER = {"alarm": 0, "watch": 1, "invalid": 2, "ok": 3}
 _TIP_COLUMNS = ("tip_change", "tip_changed")
+_OK_BARS_MAX = 150  # ok seams in one panel above which their interval bars are left out
 _COMMENT = re.compile(r"<!--.*?-->", re.DOTALL)
 
 matplotlib.rcParams.update({"svg.fonttype": "path", "font.size": 8, "axes.titlesize": 9, "svg.hashsalt": "ctwd"})
@@ -76,7 +77,8 @@ def _status_points(ax: Any, d: pl.DataFrame, x: str, y: str, lo: str | None, hi:
         xs = _x(sel, use_time) if x == "_time" else sel.get_column(x).to_list()
         ys = sel.get_column(y).to_numpy()
         yerr = None
-        if lo is not None and hi is not None:
+        # interval bars for every flagged seam; for ok seams only on small nights (bars are most of an SVG's weight)
+        if lo is not None and hi is not None and (status != "ok" or sel.height <= _OK_BARS_MAX):
             yerr = [np.clip(ys - sel.get_column(lo).to_numpy(), 0, None), np.clip(sel.get_column(hi).to_numpy() - ys, 0, None)]
         ax.errorbar(xs, ys, yerr=yerr, fmt=m, ms=5 if status != "ok" else 3.5, color=colour,
                     mfc=colour if filled else "white", elinewidth=0.5, capsize=0, lw=0, label=status, zorder=3)
