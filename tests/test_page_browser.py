@@ -31,7 +31,7 @@ def night(tmp_path_factory):
         shutil.copy(f, clean / f.name)
     render(clean, max_traces=4)
     plant_hostile_names(out)
-    render(out, max_traces=4)
+    render(out, max_traces=2, charts=False)
     return {"clean": clean, "hostile": out}
 
 
