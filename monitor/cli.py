@@ -148,7 +148,7 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
 @click.option("--history", "history_dir", default=None, type=click.Path(path_type=Path, file_okay=False),
               help="Folder of earlier nights' results, drawn behind tonight's CTWD.")
 @click.option("--max-traces", default=None, type=click.IntRange(min=0),
-              help="Draw at most this many flagged seams' traces (default 24).")
+              help="Draw at most this many flagged seams' traces (default 16).")
 def report(results_dir: Path, history_dir: Path | None, max_traces: int | None) -> None:
     """Rebuild summary.html from stored results (seams.parquet, files.csv, run.json)."""
     from monitor.report import render_page

@@ -26,7 +26,7 @@ __all__ = ["render_page", "ctwd_plot_svg", "penetration_plot_svg", "trace_plot_s
            "MAX_TRACES", "STYLE"]
 
 #: Traces drawn at most (flagged seams only); the rest are listed as left out.
-MAX_TRACES = 24
+MAX_TRACES = 16
 
 #: status -> (marker, colour, filled). Shapes and fills differ, so B/W print still tells them apart.
 STYLE = {
@@ -202,7 +202,6 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
         ax.yaxis.set_major_locator(MaxNLocator(3))  # few ticks: axis drawing is most of a trace's cost
         ax.xaxis.set_major_locator(MaxNLocator(8))
     axes[-1].set_xlabel("time from arc start [s]")
-    title = axes[0].set_title("", fontsize=7, loc="left")
     transient: list[Any] = []
     try:
         for r in rows:
@@ -239,8 +238,6 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
                                              color="#9c1c1c", zorder=3))
                 ax.relim()
                 ax.autoscale_view()
-            title.set_text("hatched: left out of the estimate (arc start, crater fill); | on zero: no valid reading"
-                           + ("; grey: min-max per bucket" if tr.decimated else ""))
             item["svg"] = _svg(fig, close=False)
             item["points"] = len(tr.t)
             item["samples"] = tr.n_samples
