@@ -152,3 +152,11 @@ def test_read_seam_trace_keeps_extremes_and_marks_trims(tmp_path):
 def test_read_seam_trace_missing_file(tmp_path):
     with pytest.raises(IngestError, match="not found"):
         read_seam_trace(tmp_path / "gone.csv", _spec(), ArcSettings(), "S1", None, 0.0, 1.0)
+
+
+def test_empty_night_renders(tmp_path):
+    from monitor.report import render_page
+    from monitor.store import empty_output
+
+    html = render_page(empty_output(), pl.DataFrame(), {}, tmp_path / "summary.html")
+    assert "No part to pull" in html and "No seam on watch" in html
