@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import atexit
 import json
 import shutil
 import tempfile
@@ -26,6 +27,7 @@ def scan_demo(out: Path) -> pl.DataFrame:
 
     if not _SCANNED:
         first = Path(tempfile.mkdtemp(prefix="ctwd-demo-scan-"))
+        atexit.register(shutil.rmtree, first, ignore_errors=True)
         run_scan([ROOT / "sample_logs"], load_config(ROOT / "config"), first, page=False, quiet=True)
         _SCANNED.append(first)
     shutil.copytree(_SCANNED[0], out, dirs_exist_ok=True)
