@@ -76,7 +76,7 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
     write_outputs(out, seams, result.files, run)
     if page:
         files_df = pl.read_csv(out / "files.csv", infer_schema=False) if (out / "files.csv").exists() else pl.DataFrame()
-        html = render_page(seams, files_df, run, out / "summary.html")
+        html = render_page(seams, files_df, run, out / "summary.html", cfg=cfg)
         atomic_write(out / "summary.html", lambda p: p.write_text(html, encoding="utf-8"))
     return run
 
@@ -145,7 +145,11 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
 
 @main.command()
 @click.argument("results_dir", type=click.Path(path_type=Path, file_okay=False, exists=True))
-def report(results_dir: Path) -> None:
+@click.option("--history", "history_dir", default=None, type=click.Path(path_type=Path, file_okay=False),
+              help="Folder of earlier nights' results, drawn behind tonight's CTWD.")
+@click.option("--max-traces", default=None, type=click.IntRange(min=0),
+              help="Draw at most this many flagged seams' traces (default 16).")
+def report(results_dir: Path, history_dir: Path | None, max_traces: int | None) -> None:
     """Rebuild summary.html from stored results (seams.parquet, files.csv, run.json)."""
     from monitor.report import render_page
     from monitor.store import atomic_write, read_seams
@@ -158,7 +162,8 @@ def report(results_dir: Path) -> None:
         sys.exit(EXIT_USAGE)
     files_csv = results_dir / "files.csv"
     files_df = pl.read_csv(files_csv, infer_schema=False) if files_csv.exists() else pl.DataFrame()
-    html = render_page(seams, files_df, run, results_dir / "summary.html")
+    kw = {} if max_traces is None else {"max_traces": max_traces}
+    html = render_page(seams, files_df, run, results_dir / "summary.html", history=history_dir, **kw)
     atomic_write(results_dir / "summary.html", lambda p: p.write_text(html, encoding="utf-8"))
     click.echo(f"page: {results_dir / 'summary.html'}")
 

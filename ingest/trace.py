@@ -1,0 +1,146 @@
+"""One seam's trace for plotting: the few rows around it, re-read lazily and decimated.
+
+Only the page uses this, and only for flagged seams; estimates never see decimated data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+
+from ingest.reader import IngestError, scan_samples
+from ingest.schema import ArcSettings, ExportSpec
+
+__all__ = ["SeamTrace", "read_seam_trace", "TRACE_CHANNELS"]
+
+#: Channels of a trace, SI units (A, V, m/s).
+TRACE_CHANNELS = ("current", "voltage", "wire_feed")
+
+
+@dataclass(frozen=True)
+class SeamTrace:
+    """A decimated seam trace.
+
+    ``t`` [s] is time since the seam's arc start (bucket centres, or the samples themselves when
+    the seam is short). For every channel ``c`` in :data:`TRACE_CHANNELS` there are
+    ``lo[c]``/``hi[c]`` (bucket minimum and maximum, NaN where the bucket had no valid reading)
+    and ``mean[c]``. ``trimmed`` lists ``(t_from, t_to)`` windows [s] left out of the estimate
+    (arc start and crater fill). ``n_samples`` is the number of raw rows read, ``decimated``
+    whether buckets hold more than one sample.
+    """
+
+    t: np.ndarray
+    lo: dict[str, np.ndarray]
+    hi: dict[str, np.ndarray]
+    mean: dict[str, np.ndarray]
+    trimmed: tuple[tuple[float, float], ...]
+    arc_time_s: float
+    n_samples: int
+    decimated: bool
+
+
+def read_seam_trace(
+    path: Path,
+    spec: ExportSpec,
+    arc: ArcSettings,
+    seam: str | None,
+    serial: str | None,
+    start_s: float,
+    arc_time_s: float,
+    max_points: int = 400,
+    margin_s: float = 0.5,
+) -> SeamTrace | None:
+    """Read one seam's samples from its export and decimate them for a plot.
+
+    Parameters
+    ----------
+    path : Path
+        The export file the seam came from (CSV or Parquet).
+    spec : ExportSpec
+        The export's column mapping.
+    arc : ArcSettings
+        Trims [s] used to mark the windows left out of the estimate.
+    seam, serial : str or None
+        The seam label and serial; used only when the export has those columns, to keep a
+        neighbouring seam's samples out of the window.
+    start_s : float
+        Arc start of the seam [s since the file's first sample], as in the seam table.
+    arc_time_s : float
+        Arc-on duration of the seam [s].
+    max_points : int
+        Upper bound on buckets; each bucket keeps min, max and mean of every channel, so
+        spikes and dropouts survive decimation.
+    margin_s : float
+        Context shown before arc start and after arc end [s].
+
+    Returns
+    -------
+    SeamTrace or None
+        None when no sample falls in the window.
+
+    Raises
+    ------
+    IngestError
+        The file is gone or cannot be read.
+    """
+    if not Path(path).is_file():
+        raise IngestError(f"{path}: file not found")
+    samples = scan_samples(Path(path), spec)
+    t0 = float(start_s)
+    t1 = t0 + float(arc_time_s)
+    lf = samples.frame.filter(pl.col("t").is_between(t0 - margin_s, t1 + margin_s))
+    if samples.has_seam and seam is not None:
+        lf = lf.filter(pl.col("seam").is_null() | (pl.col("seam") == seam))
+    if samples.has_serial and serial is not None:
+        lf = lf.filter(pl.col("serial").is_null() | (pl.col("serial") == serial))
+    lf = lf.select((pl.col("t") - t0).alias("t"), *TRACE_CHANNELS)
+    span = (t1 - t0) + 2 * margin_s
+    width = span / max(int(max_points), 1)
+
+    def ok(c: str) -> pl.Expr:
+        v = pl.col(c)
+        return pl.when(v.is_finite()).then(v)
+
+    bucket = ((pl.col("t") + margin_s) / width).floor().cast(pl.Int64).alias("_b")
+    dec = (
+        lf.with_columns(bucket)
+        .group_by("_b")
+        .agg(
+            pl.col("t").mean().alias("t"),
+            pl.len().alias("_n"),
+            *[ok(c).min().alias(f"{c}_lo") for c in TRACE_CHANNELS],
+            *[ok(c).max().alias(f"{c}_hi") for c in TRACE_CHANNELS],
+            *[ok(c).mean().alias(f"{c}_mean") for c in TRACE_CHANNELS],
+        )
+        .sort("_b")
+    )
+    try:
+        df = dec.collect()
+    except (pl.exceptions.PolarsError, OSError) as exc:
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise IngestError(f"{path}: cannot be read: {msg[:200]}") from None
+    if df.height == 0:
+        return None
+
+    def arr(name: str) -> np.ndarray:
+        return df.get_column(name).cast(pl.Float64).fill_null(float("nan")).to_numpy()
+
+    n = int(df.get_column("_n").sum())
+    trimmed = []
+    if arc.trim_start > 0:
+        trimmed.append((0.0, min(arc.trim_start, arc_time_s)))
+    if arc.trim_end > 0:
+        trimmed.append((max(arc_time_s - arc.trim_end, 0.0), float(arc_time_s)))
+    return SeamTrace(
+        t=arr("t"),
+        lo={c: arr(f"{c}_lo") for c in TRACE_CHANNELS},
+        hi={c: arr(f"{c}_hi") for c in TRACE_CHANNELS},
+        mean={c: arr(f"{c}_mean") for c in TRACE_CHANNELS},
+        trimmed=tuple(trimmed),
+        arc_time_s=float(arc_time_s),
+        n_samples=n,
+        decimated=n > df.height,
+    )
