@@ -28,6 +28,7 @@ __all__ = [
     "SeamSpec",
     "PenetrationReference",
     "Part",
+    "DriftSettings",
     "CellConfig",
     "Config",
     "load_config",
@@ -93,6 +94,18 @@ class PenetrationReference:
 
 
 @dataclass(frozen=True)
+class DriftSettings:
+    """Drift charts of a part ([drift] table): EWMA λ and L, CUSUM k and h in units of each
+    seam's in-control σ, and how many parts form the baseline that estimates σ."""
+
+    ewma_lambda: float = 0.10
+    ewma_l: float = 2.814
+    cusum_k: float = 0.5
+    cusum_h: float = 5.0
+    baseline_parts: int = 20
+
+
+@dataclass(frozen=True)
 class Part:
     name: str
     wire: str
@@ -100,6 +113,7 @@ class Part:
     seams: dict[str, SeamSpec]
     reference: PenetrationReference
     path: Path
+    drift: DriftSettings = DriftSettings()
 
     def seam(self, name: str) -> SeamSpec:
         """The spec of seam ``name``: its own entry, else the part's defaults under that name."""
@@ -347,7 +361,7 @@ def _seam_spec(t: _Table, name: str, base: SeamSpec | None) -> SeamSpec:
 def load_part(path: Path, wires: dict[str, Wire]) -> Part:
     data = _read_toml(path)
     t = _Table(path, "", data)
-    t.check_keys({"part", "wire", "penetration_reference", "seam", "note"} | _SEAM_KEYS)
+    t.check_keys({"part", "wire", "penetration_reference", "seam", "note", "drift"} | _SEAM_KEYS)
     name = t.string("part", required=True)
     wire = t.string("wire", required=True)
     if wire not in wires:
@@ -381,7 +395,24 @@ def load_part(path: Path, wires: dict[str, Wire]) -> Part:
         if sname in seams:
             raise st.fail("name", f'"{sname}" is named twice; each seam once')
         seams[sname] = _seam_spec(st, sname, defaults)
-    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path)
+    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path,
+                drift=_drift(path, data.get("drift", {})))
+
+
+def _drift(path: Path, raw: Any) -> DriftSettings:
+    d = _Table(path, "[drift]", raw)
+    d.check_keys({"ewma_lambda", "ewma_l", "cusum_k", "cusum_h", "baseline_parts"})
+    base = DriftSettings()
+    lam = d.number("ewma_lambda", base.ewma_lambda, 0.0, 1.0)
+    if lam <= 0:
+        raise d.fail("ewma_lambda", f"{lam!r} must be greater than 0 (and at most 1)")
+    n = d.number("baseline_parts", base.baseline_parts, 5, 100000)
+    if n != int(n):
+        raise d.fail("baseline_parts", f"{d.data['baseline_parts']!r} must be a whole number of parts")
+    ewma_l = d.number("ewma_l", base.ewma_l, 0.5, 10.0)
+    cusum_k = d.number("cusum_k", base.cusum_k, 0.0, 5.0)
+    cusum_h = d.number("cusum_h", base.cusum_h, 0.5, 50.0)
+    return DriftSettings(ewma_lambda=lam, ewma_l=ewma_l, cusum_k=cusum_k, cusum_h=cusum_h, baseline_parts=int(n))
 
 
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
