@@ -211,5 +211,10 @@ def demo(out_dir: Path) -> None:
     click.echo(f"open {(out_dir / 'summary.html').resolve().as_uri()} in a browser")
 
 
+from monitor.cli_drift import history_cmd, limits_cmd, tune_cmd  # noqa: E402
+
+main.add_command(history_cmd); main.add_command(limits_cmd); main.add_command(tune_cmd)  # noqa: E702
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

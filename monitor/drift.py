@@ -12,9 +12,12 @@ For each series (settings from the part's ``[drift]`` table, see ``monitor.confi
    and raises no drift signal.
 2. **Resets at contact-tip changes.** A part starts a new tip when the seam rows carry a true
    ``tip_change`` marker column, or, without a marker, when *every* seam position of that part
-   with a value on it and on the previous part stepped back toward its baseline level by more
-   than :data:`TIP_STEP_SIGMAS` of its own σ at once. One seam jumping back alone (a fixture
-   put right) is not a tip change. Both charts restart at a reset.
+   with a value on it and on the previous part (at least :data:`TIP_MIN_SEAMS` of them) stepped
+   toward its baseline level by more than :data:`TIP_STEP_SIGMAS` of its own σ at once. One
+   seam jumping back alone (a fixture put right) is not a tip change. Under no change each seam
+   makes such a step with probability about 1.7 % (a difference of two observations has
+   standard deviation √2·σ), so two seams at once about 3e-4 a part and three 5e-6: rare
+   enough. Parts with a single seam position need the marker. Both charts restart at a reset.
 3. **Charts.** EWMA (λ, L; exact limits) and two-sided tabular CUSUM (k, h), both in units of
    the seam's σ (``spc.ewma_chart``, ``spc.cusum_chart``). Either chart's signal turns an
    ``ok`` seam into ``watch`` with the reason "CTWD drift: CUSUM signal on S3 since serial
@@ -42,11 +45,13 @@ import polars as pl
 from monitor import spc
 from monitor.config import Config, DriftSettings
 
-__all__ = ["DRIFT_COLUMNS", "MIN_FORECAST_PARTS", "TIP_STEP_SIGMAS", "SeriesResult", "analyse_series",
+__all__ = ["DRIFT_COLUMNS", "MIN_FORECAST_PARTS", "TIP_MIN_SEAMS", "TIP_STEP_SIGMAS", "SeriesResult", "analyse_series",
            "detect_tip_changes", "drift_frame", "apply_drift_status", "forecast_sentences", "drift_with_history"]
 
 #: A tip change is a step back toward the baseline larger than this many σ on every seam at once.
-TIP_STEP_SIGMAS = 2.0
+TIP_STEP_SIGMAS = 3.0
+#: ... on at least this many seam positions of the part.
+TIP_MIN_SEAMS = 2
 #: Fewest parts since the last reset for a penetration forecast.
 MIN_FORECAST_PARTS = 8
 
@@ -85,8 +90,9 @@ def detect_tip_changes(x: np.ndarray, target: np.ndarray, sigma: np.ndarray,
     """Reset mask over parts from a (seams × parts) deviation matrix.
 
     Part j (j ≥ 1) is a tip change if ``marker[j]`` is true, or if every seam with a finite value
-    on parts j−1 and j and a known σ moved toward its target by more than TIP_STEP_SIGMAS·σ
-    (and at least one seam could be compared). ``target`` and ``sigma`` are per seam.
+    on parts j−1 and j and a known σ stepped in the direction of its target by more than
+    TIP_STEP_SIGMAS·σ, with at least TIP_MIN_SEAMS seams compared. ``target`` and ``sigma``
+    [unit of x] are per seam.
     """
     n_parts = x.shape[1]
     reset = np.zeros(n_parts, dtype=bool)
@@ -98,10 +104,9 @@ def detect_tip_changes(x: np.ndarray, target: np.ndarray, sigma: np.ndarray,
     s = sigma[:, None]
     prev, cur = x[:, :-1], x[:, 1:]
     comparable = np.isfinite(prev) & np.isfinite(cur) & np.isfinite(s) & (s > 0)
-    toward = (np.abs(prev - t) - np.abs(cur - t)) > TIP_STEP_SIGMAS * s
-    crosses_back = np.sign(prev - t) * (cur - prev) < 0
-    step_back = toward & crosses_back
-    all_back = np.where(comparable, step_back, True).all(axis=0) & comparable.any(axis=0)
+    step = cur - prev
+    step_back = (np.abs(step) > TIP_STEP_SIGMAS * s) & ((t - prev) * step > 0)
+    all_back = np.where(comparable, step_back, True).all(axis=0) & (comparable.sum(axis=0) >= TIP_MIN_SEAMS)
     reset[1:] |= all_back
     reset[0] = False
     return reset
