@@ -156,7 +156,7 @@ def drift_frame(seams: pl.DataFrame, settings_for: Callable[[str], DriftSettings
     penetration_mm, min_penetration_mm, arc_time_s; uses a boolean ``tip_change`` column when
     present. Row order is kept.
     """
-    df = seams.with_row_index("_row")
+    df = seams.drop([c for c in DRIFT_COLUMNS if c in seams.columns]).with_row_index("_row")
     out: list[pl.DataFrame] = []
     for (part,), pdf in df.group_by(["part"], maintain_order=True):
         if part is None:

@@ -133,7 +133,8 @@ def backtest(hist: pl.DataFrame, base: DriftSettings, grid_cusum=CUSUM_GRID, gri
     return pl.DataFrame(rows)
 
 
-def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0) -> TuneResult:
+def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_cusum=CUSUM_GRID,
+              grid_ewma=EWMA_GRID) -> TuneResult:
     """Backtest a part's history and recommend settings; raises HistoryTooShort with the shortfall."""
     base = part.drift
     need = base.baseline_parts + MIN_BACKTEST_PARTS
@@ -147,7 +148,8 @@ def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0) -> Tu
             f'history of part "{part.name}" has {n} valid parts on its shortest seam position'
             f"{f' over {days} day(s)' if days else ''}; tuning needs at least {need} "
             f"({base.baseline_parts} for the baseline + {MIN_BACKTEST_PARTS} to backtest): {more} more parts{nights}")
-    table = backtest(hist, base).with_columns((pl.col("arl0_combined") >= target_parts).alias("meets_target"))
+    table = backtest(hist, base, grid_cusum, grid_ewma).with_columns(
+        (pl.col("arl0_combined") >= target_parts).alias("meets_target"))
     ok = table.filter(pl.col("meets_target")).sort(
         ["caught", "lead_parts", "unconfirmed", "arl0_combined"], descending=[True, True, False, True], nulls_last=True)
     rec = None
