@@ -120,8 +120,14 @@ def _score(judged: pl.DataFrame) -> dict[str, float]:
             "unconfirmed_per_500": 500.0 * unconfirmed / n_parts if n_parts else float("nan")}
 
 
-def backtest(hist: pl.DataFrame, base: DriftSettings, grid_cusum=CUSUM_GRID, grid_ewma=EWMA_GRID) -> pl.DataFrame:
-    """One row per candidate: its settings, backtest counts on ``hist`` and in-control ARLs."""
+def backtest(hist: pl.DataFrame, base: DriftSettings, grid_cusum=None, grid_ewma=None) -> pl.DataFrame:
+    """One row per candidate: its settings, backtest counts on ``hist`` and in-control ARLs.
+
+    ``grid_cusum``: (k, h) pairs, default :data:`CUSUM_GRID`; ``grid_ewma``: (λ, L) pairs,
+    default :data:`EWMA_GRID`; every pairing of the two is a candidate.
+    """
+    grid_cusum = CUSUM_GRID if grid_cusum is None else grid_cusum
+    grid_ewma = EWMA_GRID if grid_ewma is None else grid_ewma
     rows = []
     for k, h in grid_cusum:
         for lam, L in grid_ewma:
@@ -133,8 +139,8 @@ def backtest(hist: pl.DataFrame, base: DriftSettings, grid_cusum=CUSUM_GRID, gri
     return pl.DataFrame(rows)
 
 
-def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_cusum=CUSUM_GRID,
-              grid_ewma=EWMA_GRID) -> TuneResult:
+def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_cusum=None,
+              grid_ewma=None) -> TuneResult:
     """Backtest a part's history and recommend settings; raises HistoryTooShort with the shortfall."""
     base = part.drift
     need = base.baseline_parts + MIN_BACKTEST_PARTS
