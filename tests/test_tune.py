@@ -52,7 +52,7 @@ def test_too_short_history_is_refused_with_the_shortfall():
         tune.tune_part(hist, part)
     msg = str(exc.value)
     need = part.drift.baseline_parts + tune.MIN_BACKTEST_PARTS
-    assert f"has 40 valid parts" in msg and f"needs at least {need}" in msg
+    assert "has 40 valid parts" in msg and f"needs at least {need}" in msg
     assert f"{need - 40} more parts" in msg and "about 1 more night(s) at the recent 40 parts a night" in msg
 
 
