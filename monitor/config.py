@@ -255,7 +255,8 @@ def load_cell(path: Path) -> CellConfig:
     if "export" not in data:
         raise ConfigError(f"{path}: [export] table is missing")
     ex = _Table(path, "[export]", data["export"])
-    ex.check_keys({"time", "seam", "part", "serial", "current", "voltage", "wire_feed", "travel_speed", "separator"})
+    ex.check_keys({"time", "seam", "part", "serial", "current", "voltage", "wire_feed", "travel_speed", "separator",
+                   "tip_change"})
     sep = ex.string("separator", default=",")
     if len(sep) != 1:
         raise ex.fail("separator", f"{sep!r} must be one character")
@@ -269,6 +270,7 @@ def load_cell(path: Path) -> CellConfig:
         wire_feed=_channel(ex, "wire_feed", "speed", True),
         travel_speed=_channel(ex, "travel_speed", "speed", False),
         csv_separator=sep,
+        tip_change=ex.string("tip_change"),
     )
     arc_t = _Table(path, "[arc]", data.get("arc", {}))
     arc_t.check_keys({"min_current", "trim_start", "trim_end", "min_duration", "max_gap", "max_dropout"})

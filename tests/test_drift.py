@@ -196,3 +196,28 @@ def test_good_drift_settings_are_read(tmp_path):
     part.write_text(part.read_text() + "\n[drift]\newma_lambda = 0.2\newma_l = 2.962\ncusum_h = 4\n")
     cfg = load_config(tmp_path / "config")
     assert cfg.parts["TB7-tow-bracket"].drift == DriftSettings(0.2, 2.962, 0.5, 4.0, 20)
+
+
+def test_tip_change_marker_mapped_in_cell_toml_resets_the_charts(tmp_path):
+    # end to end: the export carries a marker column, cell.toml maps it, the scan resets there
+    import shutil
+    from pathlib import Path
+
+    from click.testing import CliRunner
+
+    from monitor.cli import main
+
+    repo = Path(__file__).resolve().parent.parent
+    shutil.copytree(repo / "config", tmp_path / "config")
+    cell = tmp_path / "config" / "cell.toml"
+    cell.write_text(cell.read_text().replace('serial = "serial"', 'serial = "serial"\ntip_change = "tip_change"'))
+    logs = tmp_path / "logs"
+    logs.mkdir()
+    for k, f in enumerate(sorted((repo / "sample_logs" / "cell3").glob("*.parquet"))[:12]):
+        pl.read_parquet(f).with_columns(pl.lit(k == 8).alias("tip_change")).write_parquet(logs / f.name)
+    res = CliRunner().invoke(main, ["scan", str(logs), "--config", str(tmp_path / "config"), "--out",
+                                    str(tmp_path / "out"), "--no-page", "--history", str(tmp_path / "h")])
+    assert res.exit_code == 0, res.output
+    seams = pl.read_parquet(tmp_path / "out" / "seams.parquet")
+    assert seams.filter(pl.col("tip_change")).get_column("serial").unique().to_list() == ["TB7-0109"]
+    assert seams.filter(pl.col("tip_reset")).get_column("serial").unique().to_list() == ["TB7-0109"]
