@@ -1,8 +1,11 @@
 """The results history: every scan's seam rows, kept across nights as a hive-partitioned Parquet dataset.
 
-Layout (one folder a part, one a day, one file per input file)::
+Layout (one folder a part, one a day, one file a scan)::
 
-    results/part=<safe part name>/date=<YYYY-MM-DD>/<input sha256 prefix>.parquet
+    results/part=<safe part name>/date=<YYYY-MM-DD>/<run checksum>.parquet
+
+The run checksum is the SHA-256 of the sorted input checksums whose rows the file holds, so a
+night's scan adds one small file per part and day, and the same rows always get the same name.
 
 - **Append only.** A file already in the history is never rewritten; a new night only adds files.
 - **Atomic.** Each file is written under ``results/.staging/`` and renamed into place, so a
@@ -19,6 +22,7 @@ the ``part`` column.
 
 from __future__ import annotations
 
+import hashlib
 import os
 import tempfile
 from collections.abc import Iterable
@@ -105,8 +109,12 @@ def read_history(root: Path, part: str | None = None, since: date | None = None)
 
 
 def known_inputs(root: Path) -> set[str]:
-    """SHA-256 of every input log already in the history (from the file names; no data is read)."""
-    return {p.stem for p in _files(root)}
+    """SHA-256 of every input log already in the history (reads only that one column)."""
+    if not _files(root):
+        return set()
+    lf = pl.scan_parquet(Path(root) / _GLOB, hive_partitioning=False, missing_columns="insert",
+                         extra_columns="ignore", schema=None)
+    return set(lf.select(pl.col(KEY_COLUMN).unique()).collect().get_column(KEY_COLUMN).drop_nulls().to_list())
 
 
 def _write_atomic(df: pl.DataFrame, dest: Path, staging: Path) -> bool:
@@ -175,8 +183,9 @@ def append_history(root: Path, seams_out: pl.DataFrame, inputs: Iterable[tuple[s
     ).rename({"part": _PART_FILE})
     written: list[Path] = []
     staging = root / ".staging"
-    for (part, day, sha), grp in rows.group_by([_PART_FILE, "_day", KEY_COLUMN], maintain_order=True):
-        dest = partition_dir(root, part, day) / f"{sha}.parquet"
+    for (part, day), grp in rows.group_by([_PART_FILE, "_day"], maintain_order=True):
+        run_sum = hashlib.sha256("\n".join(sorted(grp.get_column(KEY_COLUMN).unique().to_list())).encode())
+        dest = partition_dir(root, part, day) / f"{run_sum.hexdigest()[:32]}.parquet"
         if _write_atomic(grp.drop("_day"), dest, staging):
             written.append(dest)
     try:
