@@ -112,6 +112,23 @@ def detect_tip_changes(x: np.ndarray, target: np.ndarray, sigma: np.ndarray,
     return reset
 
 
+def _run_starts(sig: np.ndarray, finite: np.ndarray, reset: np.ndarray) -> np.ndarray:
+    """Index of the first part of the current unbroken run of signals at each part, −1 if none.
+
+    A run is broken by a reset or by a finite observation without a signal; NaN parts neither
+    break nor start one (they carry the run on). Vectorised: the latest break b(j) at or before j,
+    then the first signal at or after b(j), kept if it is not after j.
+    """
+    n = sig.size
+    j = np.arange(n)
+    sigf = sig & finite
+    brk = reset | (finite & ~sig)
+    last_break = np.maximum.accumulate(np.where(brk, j, 0)) if n else j
+    next_sig = np.minimum.accumulate(np.where(sigf, j, n)[::-1])[::-1] if n else j
+    first = next_sig[last_break] if n else j
+    return np.where(first <= j, first, -1).astype(np.int64)
+
+
 def analyse_series(x: np.ndarray, reset: np.ndarray, settings: DriftSettings) -> SeriesResult | None:
     """Run both charts on one seam position's deviations; None while still in baseline."""
     target, sigma = baseline(x, settings.baseline_parts, reset)
@@ -122,21 +139,7 @@ def analyse_series(x: np.ndarray, reset: np.ndarray, settings: DriftSettings) ->
     sig_c, sig_e = np.asarray(c["signal"]), np.asarray(e["signal"])
     sig = sig_c | sig_e
     chart = [("CUSUM and EWMA" if a and b else "CUSUM" if a else "EWMA" if b else None) for a, b in zip(sig_c, sig_e)]
-    # start of the current run of signals (NaN parts neither break nor start a run; resets do)
-    finite = np.isfinite(x)
-    since = np.full(x.size, -1, dtype=np.int64)
-    start = -1
-    for j in range(x.size):  # O(parts) per series, not per sample
-        if reset[j]:
-            start = -1
-        if not finite[j]:
-            since[j] = start if start >= 0 else -1
-            continue
-        if sig[j]:
-            start = j if start < 0 else start
-            since[j] = start
-        else:
-            start = -1
+    since = _run_starts(sig, np.isfinite(x), reset)
     return SeriesResult(sigma, target, np.asarray(e["z"]), np.asarray(c["upper"]), np.asarray(c["lower"]), sig,
                         chart, since)
 
