@@ -129,3 +129,18 @@ def test_no_history_writes_none(tmp_path):
     assert res.exit_code == 0, res.output
     assert not (tmp_path / "results").exists()
     assert "history:" not in res.output
+
+
+def test_rescan_with_one_new_input_adds_only_its_rows(tmp_path):
+    h = tmp_path / "results"
+    both = pl.concat([rows("TB7", "a.parquet", NIGHT), rows("TB7", "b.parquet", NIGHT)])
+    first = append_history(h, both, [("a.parquet", sha("a")), ("b.parquet", sha("b"))])
+    assert first.rows_added == 6 and len(first.files_written) == 1  # one file a scan per part and day
+    three = pl.concat([both, rows("TB7", "c.parquet", NIGHT)])
+    again = append_history(h, three, [("a.parquet", sha("a")), ("b.parquet", sha("b")), ("c.parquet", sha("c"))])
+    assert again.rows_added == 3 and set(again.inputs_already_present) == {sha("a"), sha("b")}
+    df = read_history(h, part="TB7")
+    assert df.height == 9
+    assert df.group_by("input_sha256").len().get_column("len").to_list() == [3, 3, 3]
+    # rows without a checksum (an input the scan could not hash) are not stored
+    assert append_history(h, rows("TB7", "d.parquet", NIGHT), [("d.parquet", None)]).rows_added == 0
