@@ -60,6 +60,10 @@ DRIFT_COLUMNS = ("drift_index", "drift_sigma_mm", "drift_target_mm", "drift_ewma
                  "parts_to_limit", "parts_to_limit_low", "parts_to_limit_high", "arc_time_to_limit_s")
 
 
+_DTYPES = {"drift_index": pl.UInt32, "drift_signal": pl.Boolean, "tip_reset": pl.Boolean,
+           "drift_chart": pl.String, "drift_since_serial": pl.String}
+
+
 @dataclass
 class SeriesResult:
     """Chart output of one seam position, arrays aligned with the part order."""
@@ -226,6 +230,7 @@ def drift_frame(seams: pl.DataFrame, settings_for: Callable[[str], DriftSettings
     for c in DRIFT_COLUMNS:
         if c not in result.columns:
             result = result.with_columns(pl.lit(None).alias(c))
+    result = result.cast({c: _DTYPES.get(c, pl.Float64) for c in DRIFT_COLUMNS})
     result = result.with_columns(pl.col("drift_signal").fill_null(False), pl.col("tip_reset").fill_null(False),
                                  pl.col(pl.Float64).fill_nan(None))
     return result.sort("_row").drop("_row")
@@ -294,9 +299,9 @@ def drift_with_history(seams_out: pl.DataFrame, files: list, cfg: Config, histor
     for p in parts:
         lf = scan_history(history, part=p)
         if lf is not None:
-            past.append(lf.select([c for c in seams_out.columns if c in lf.collect_schema().names()]
-                                  + [KEY_COLUMN, *(["tip_change"] if "tip_change" in lf.collect_schema().names() else [])])
-                        .collect())
+            names = lf.collect_schema().names()
+            wanted = dict.fromkeys([*seams_out.columns, KEY_COLUMN, "tip_change"])
+            past.append(lf.select([c for c in wanted if c in names]).collect())
     if past:
         old = pl.concat(past, how="diagonal_relaxed").filter(~pl.col(KEY_COLUMN).is_in(
             tonight.get_column(KEY_COLUMN).drop_nulls().unique().to_list()) | pl.col(KEY_COLUMN).is_null())

@@ -43,6 +43,8 @@ SCANNED_COLUMN = "scanned_at"
 _PART_FILE = "part_name"  # the part's real name inside each file (the folder holds the safe name)
 _GLOB = "part=*/date=*/*.parquet"
 _UNKNOWN = "_unknown"
+# files of different nights may differ a little (a column all-null one night is not stored)
+_CAST = pl.ScanCastOptions(integer_cast=["upcast", "allow-float"], float_cast="upcast")
 
 
 @dataclass(frozen=True)
@@ -87,7 +89,7 @@ def scan_history(root: Path, part: str | None = None, since: date | None = None,
     if not root.is_dir() or not _files(root):
         return None
     lf = pl.scan_parquet(root / _GLOB, hive_partitioning=True, hive_schema={"part": pl.String, "date": pl.Date},
-                         missing_columns="insert", extra_columns="ignore")
+                         missing_columns="insert", extra_columns="ignore", cast_options=_CAST)
     if part is not None:
         lf = lf.filter(pl.col("part") == (safe_name(part) if part else _UNKNOWN))
     if since is not None:
@@ -113,7 +115,7 @@ def known_inputs(root: Path) -> set[str]:
     if not _files(root):
         return set()
     lf = pl.scan_parquet(Path(root) / _GLOB, hive_partitioning=False, missing_columns="insert",
-                         extra_columns="ignore", schema=None)
+                         extra_columns="ignore", cast_options=_CAST)
     return set(lf.select(pl.col(KEY_COLUMN).unique()).collect().get_column(KEY_COLUMN).drop_nulls().to_list())
 
 
@@ -183,6 +185,7 @@ def append_history(root: Path, seams_out: pl.DataFrame, inputs: Iterable[tuple[s
     ).rename({"part": _PART_FILE})
     written: list[Path] = []
     staging = root / ".staging"
+    rows = rows.drop([c for c, t in rows.schema.items() if t == pl.Null])  # no type to store
     for (part, day), grp in rows.group_by([_PART_FILE, "_day"], maintain_order=True):
         run_sum = hashlib.sha256("\n".join(sorted(grp.get_column(KEY_COLUMN).unique().to_list())).encode())
         dest = partition_dir(root, part, day) / f"{run_sum.hexdigest()[:32]}.parquet"
