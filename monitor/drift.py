@@ -9,7 +9,8 @@ For each series (settings from the part's ``[drift]`` table, see ``monitor.confi
 1. **Baseline.** The first ``baseline_parts`` observations give the in-control level (their
    median) and σ by the moving-range method (MR̄/d2, ``spc.moving_range_sigma``; moving ranges
    that span a tip change are dropped). With fewer observations the series is "in baseline"
-   and raises no drift signal.
+   and raises no drift signal; the baseline parts themselves never raise one (they define the
+   level, they are not tested against it).
 2. **Resets at contact-tip changes.** A part starts a new tip when the seam rows carry a true
    ``tip_change`` marker column, or, without a marker, when *every* seam position of that part
    with a value on it and on the previous part (at least :data:`TIP_MIN_SEAMS` of them) stepped
@@ -141,6 +142,9 @@ def analyse_series(x: np.ndarray, reset: np.ndarray, settings: DriftSettings) ->
     e = spc.ewma_chart(x, target, sigma, settings.ewma_lambda, settings.ewma_l, reset=reset)
     c = spc.cusum_chart(x, target, sigma, settings.cusum_k, settings.cusum_h, reset=reset)
     sig_c, sig_e = np.asarray(c["signal"]), np.asarray(e["signal"])
+    idx = np.flatnonzero(np.isfinite(x))
+    phase2 = np.arange(x.size) > idx[settings.baseline_parts - 1]  # the baseline parts define, not test
+    sig_c, sig_e = sig_c & phase2, sig_e & phase2
     sig = sig_c | sig_e
     chart = [("CUSUM and EWMA" if a and b else "CUSUM" if a else "EWMA" if b else None) for a, b in zip(sig_c, sig_e)]
     since = _run_starts(sig, np.isfinite(x), reset)
