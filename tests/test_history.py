@@ -144,3 +144,21 @@ def test_rescan_with_one_new_input_adds_only_its_rows(tmp_path):
     assert df.group_by("input_sha256").len().get_column("len").to_list() == [3, 3, 3]
     # rows without a checksum (an input the scan could not hash) are not stored
     assert append_history(h, rows("TB7", "d.parquet", NIGHT), [("d.parquet", None)]).rows_added == 0
+
+
+def test_page_is_written_with_and_without_history(tmp_path):
+    logs = tmp_path / "logs"
+    logs.mkdir()
+    for f in sorted((REPO / "sample_logs" / "cell3").glob("*.parquet"))[:12]:
+        shutil.copy(f, logs / f.name)
+    r = CliRunner()
+    plain = r.invoke(main, ["scan", str(logs), "--config", str(REPO / "config"), "--out", str(tmp_path / "a"),
+                            "--no-history"])
+    assert plain.exit_code == 0, plain.output
+    assert "Drift forecast" not in (tmp_path / "a" / "summary.html").read_text()
+    hist = r.invoke(main, ["scan", str(logs), "--config", str(REPO / "config"), "--out", str(tmp_path / "b"),
+                           "--history", str(tmp_path / "h")])
+    assert hist.exit_code == 0, hist.output
+    page = (tmp_path / "b" / "summary.html").read_text()
+    # 12 worn-tip parts: a falling penetration trend on each seam, one sentence each on the page
+    assert page.count("at the present drift") == 3 and "Drift forecast" in page
