@@ -162,3 +162,20 @@ def test_page_is_written_with_and_without_history(tmp_path):
     page = (tmp_path / "b" / "summary.html").read_text()
     # 12 worn-tip parts: a falling penetration trend on each seam, one sentence each on the page
     assert page.count("at the present drift") == 3 and "Drift forecast" in page
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.text(min_size=0, max_size=40))
+def test_any_part_name_maps_inside_the_history(name):
+    # property: whatever the part name (separators, dots, NUL, unicode), the partition folder is
+    # a direct child of the history root with the part= prefix
+    from monitor.history import partition_dir
+
+    root = Path("/tmp/ctwd-history-root")
+    d = partition_dir(root, name, date(2026, 11, 30))
+    assert d.parent.parent == root and d.parent.name.startswith("part=")
+    assert "/" not in d.parent.name and d.parent.name not in ("part=.", "part=..")
