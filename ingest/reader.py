@@ -121,6 +121,11 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
             exprs.append(pl.col(opt).cast(pl.String).alias(alias))
         else:
             exprs.append(pl.lit(None, dtype=pl.String).alias(alias))
+    if spec.tip_change is not None and spec.tip_change in schema:
+        col = pl.col(spec.tip_change)
+        marker = (col.cast(pl.String).str.to_lowercase().is_in(["1", "true", "yes", "y", "x"])
+                  if schema[spec.tip_change] == pl.String else col.cast(pl.Float64).fill_nan(0) != 0)
+        exprs.append(marker.fill_null(False).alias("tip_change"))
     present = {alias: opt is not None and opt in schema
                for opt, alias in ((spec.seam, "seam"), (spec.part, "part"), (spec.serial, "serial"))}
     return Samples(frame=lf.select(exprs), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],

@@ -18,6 +18,8 @@ column              unit     meaning
 ``seam``            —        seam label (null when not logged)
 ``part``            —        part name (null when not logged)
 ``serial``          —        part serial (null when not logged)
+``tip_change``      —        true on samples welded right after a contact-tip change
+                             (Boolean; present only when mapped)
 ==================  =======  =====================================================
 """
 
@@ -52,6 +54,7 @@ class ExportSpec:
     part: str | None = None
     serial: str | None = None
     csv_separator: str = ","
+    tip_change: str | None = None  # optional marker column: nonzero / "true" after a tip change
 
 
 @dataclass(frozen=True)

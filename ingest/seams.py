@@ -44,13 +44,15 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         channel; ``*_bad`` count invalid readings (null, NaN, ≤ 0) in the window;
         ``current_sq_mean`` is ⟨I²⟩ in float64; ``power_mean`` is ⟨V·I⟩ over samples where both
         are valid; ``max_gap_s`` the longest step between kept samples, ``min_step_s`` the
-        smallest (negative when timestamps go backwards).
+        smallest (negative when timestamps go backwards). When the sample frame has a
+        ``tip_change`` marker column, ``tip_change`` is true for a seam with any marked sample.
 
     Notes
     -----
     A null current does not end an arc-on stretch (the previous state carries on), so a
     current-channel dropout inside a seam is counted as a dropout rather than splitting it.
     """
+    has_marker = "tip_change" in samples.collect_schema().names()
     cur = pl.col("current")
     arc_on = (
         pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
@@ -100,6 +102,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         steps.max().alias("max_gap_s"),
         steps.min().alias("min_step_s"),
         (~k).sum().alias("n_trimmed"),
+        *([pl.col("tip_change").any()] if has_marker else []),
     )
     if not labelled:
         agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration)
@@ -107,4 +110,4 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     if not labelled:
         number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))
         agg = agg.with_columns(("S" + number.cast(pl.String)).alias("seam"))
-    return agg.select(AGGREGATE_COLUMNS)
+    return agg.select(*AGGREGATE_COLUMNS, *(["tip_change"] if has_marker else []))

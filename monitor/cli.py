@@ -30,8 +30,11 @@ def _now() -> str:
 
 
 def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None, page: bool = True,
-             quiet: bool = False) -> dict:
-    """Scan, write all outputs into ``out``, return run.json's content."""
+             quiet: bool = False, history: Path | None = None) -> dict:
+    """Scan, write all outputs into ``out``, return run.json's content.
+
+    With ``history`` (a folder), tonight's seams are judged for drift against it and appended.
+    """
     from monitor.pipeline import scan_paths
     from monitor.report import render_page
     from monitor.store import atomic_write, to_output, write_outputs
@@ -56,6 +59,11 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
         if bar is not None:
             bar.__exit__(None, None, None)
     seams = to_output(result.seams)
+    drift_info: dict = {}
+    if history is not None:
+        from monitor.drift import drift_with_history
+
+        seams, drift_info = drift_with_history(seams, result.files, cfg, history)
     counts = {s: int((seams.get_column("status") == s).sum()) for s in ("alarm", "watch", "invalid", "ok")}
     run = {
         "tool": "ctwd-monitor",
@@ -72,6 +80,7 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
                     "rows": f.rows, "seams": f.seams, "error": f.error} for f in result.files],
         "counts": {"files": len(result.files), "files_skipped": sum(f.status == "skipped" for f in result.files),
                    "seams": seams.height, **counts},
+        **drift_info,
     }
     write_outputs(out, seams, result.files, run)
     if page:
@@ -120,8 +129,11 @@ def main() -> None:
               help="Exit 1 when any seam is in alarm (or in watch or alarm).")
 @click.option("--no-page", is_flag=True, help="Do not write summary.html.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar, no summary.")
+@click.option("--history", "history_dir", default=None, type=click.Path(path_type=Path, file_okay=False),
+              help="Results history folder to judge drift against and append to [default: results/ beside the config].")
+@click.option("--no-history", is_flag=True, help="Neither read nor append the results history.")
 def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | None, fail_on: str | None,
-         no_page: bool, quiet: bool) -> None:
+         no_page: bool, quiet: bool, history_dir: Path | None = None, no_history: bool = False) -> None:
     """Scan log exports (files and/or folders) and judge every seam.
 
     Exit code: 0 when the scan ran (alarms or not), 1 with --fail-on when such seams exist,
@@ -135,9 +147,17 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
         click.echo(f'ctwd: --part "{part}" has no file in {config_dir / "parts"}; known parts: '
                    f'{", ".join(sorted(cfg.parts)) or "none"}', err=True)
         sys.exit(EXIT_USAGE)
-    run = run_scan(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet)
+    if not no_history and history_dir is None:
+        from monitor.history import default_history_dir
+
+        history_dir = default_history_dir(config_dir)
+    run = run_scan(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet,
+                   history=None if no_history else history_dir)
     if not quiet:
         _print_summary(run, out_dir, not no_page)
+        if "history" in run:
+            h = run["history"]
+            click.echo(f"history: {h['root']} (+{h['rows_added']} rows; {h['inputs_already_present']} inputs already in it)")
     c = run["counts"]
     if fail_on == "alarm" and c["alarm"] > 0 or fail_on == "watch" and (c["alarm"] + c["watch"]) > 0:
         sys.exit(EXIT_FLAGGED)
@@ -200,6 +220,11 @@ from monitor.cli_calibrate import calibrate, calibrate_penetration  # noqa: E402
 
 main.add_command(calibrate)
 main.add_command(calibrate_penetration)
+
+from monitor.cli_drift import history_cmd, limits_cmd, tune_cmd  # noqa: E402
+
+main.add_command(history_cmd); main.add_command(limits_cmd); main.add_command(tune_cmd)  # noqa: E702
+
 
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -30,6 +30,7 @@ __all__ = [
     "PenetrationReference",
     "Baseline",
     "Part",
+    "DriftSettings",
     "CellConfig",
     "Config",
     "load_config",
@@ -113,6 +114,18 @@ class Baseline:
 
 
 @dataclass(frozen=True)
+class DriftSettings:
+    """Drift charts of a part ([drift] table): EWMA λ and L, CUSUM k and h in units of each
+    seam's in-control σ, and how many parts form the baseline that estimates σ."""
+
+    ewma_lambda: float = 0.10
+    ewma_l: float = 2.814
+    cusum_k: float = 0.5
+    cusum_h: float = 5.0
+    baseline_parts: int = 20
+
+
+@dataclass(frozen=True)
 class Part:
     name: str
     wire: str
@@ -121,6 +134,7 @@ class Part:
     reference: PenetrationReference
     path: Path
     baseline: Baseline | None = None
+    drift: DriftSettings = DriftSettings()
 
     def seam(self, name: str) -> SeamSpec:
         """The spec of seam ``name``: its own entry, else the part's defaults under that name."""
@@ -262,7 +276,8 @@ def load_cell(path: Path) -> CellConfig:
     if "export" not in data:
         raise ConfigError(f"{path}: [export] table is missing")
     ex = _Table(path, "[export]", data["export"])
-    ex.check_keys({"time", "seam", "part", "serial", "current", "voltage", "wire_feed", "travel_speed", "separator"})
+    ex.check_keys({"time", "seam", "part", "serial", "current", "voltage", "wire_feed", "travel_speed", "separator",
+                   "tip_change"})
     sep = ex.string("separator", default=",")
     if len(sep) != 1:
         raise ex.fail("separator", f"{sep!r} must be one character")
@@ -276,6 +291,7 @@ def load_cell(path: Path) -> CellConfig:
         wire_feed=_channel(ex, "wire_feed", "speed", True),
         travel_speed=_channel(ex, "travel_speed", "speed", False),
         csv_separator=sep,
+        tip_change=ex.string("tip_change"),
     )
     arc_t = _Table(path, "[arc]", data.get("arc", {}))
     arc_t.check_keys({"min_current", "trim_start", "trim_end", "min_duration", "max_gap", "max_dropout"})
@@ -368,7 +384,7 @@ def _seam_spec(t: _Table, name: str, base: SeamSpec | None) -> SeamSpec:
 def load_part(path: Path, wires: dict[str, Wire]) -> Part:
     data = _read_toml(path)
     t = _Table(path, "", data)
-    t.check_keys({"part", "wire", "penetration_reference", "seam", "note", "baseline"} | _SEAM_KEYS)
+    t.check_keys({"part", "wire", "penetration_reference", "seam", "note", "baseline", "drift"} | _SEAM_KEYS)
     name = t.string("part", required=True)
     wire = t.string("wire", required=True)
     if wire not in wires:
@@ -403,7 +419,8 @@ def load_part(path: Path, wires: dict[str, Wire]) -> Part:
             raise st.fail("name", f'"{sname}" is named twice; each seam once')
         seams[sname] = _seam_spec(st, sname, defaults)
     baseline = _baseline(path, data["baseline"]) if "baseline" in data else None
-    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path, baseline=baseline)
+    return Part(name=name, wire=wire, defaults=defaults, seams=seams, reference=ref, path=path, baseline=baseline,
+                drift=_drift(path, data.get("drift", {})))
 
 
 _BASELINE_KEYS = {"seams", "tip_changes", "detect_step", "note"}
@@ -457,6 +474,22 @@ def _read_tip_changes(path: Path) -> tuple[tuple[datetime, ...], tuple[str, ...]
     if "serial" in cols:
         return (), tuple(r["serial"] for r in rows if r["serial"])
     raise ConfigError(f'{path}: no "time" or "serial" column; columns are: {", ".join(cols) or "none"}')
+
+
+def _drift(path: Path, raw: Any) -> DriftSettings:
+    d = _Table(path, "[drift]", raw)
+    d.check_keys({"ewma_lambda", "ewma_l", "cusum_k", "cusum_h", "baseline_parts"})
+    base = DriftSettings()
+    lam = d.number("ewma_lambda", base.ewma_lambda, 0.0, 1.0)
+    if lam <= 0:
+        raise d.fail("ewma_lambda", f"{lam!r} must be greater than 0 (and at most 1)")
+    n = d.number("baseline_parts", base.baseline_parts, 5, 100000)
+    if n != int(n):
+        raise d.fail("baseline_parts", f"{d.data['baseline_parts']!r} must be a whole number of parts")
+    ewma_l = d.number("ewma_l", base.ewma_l, 0.5, 10.0)
+    cusum_k = d.number("cusum_k", base.cusum_k, 0.0, 5.0)
+    cusum_h = d.number("cusum_h", base.cusum_h, 0.5, 50.0)
+    return DriftSettings(ewma_lambda=lam, ewma_l=ewma_l, cusum_k=cusum_k, cusum_h=cusum_h, baseline_parts=int(n))
 
 
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")

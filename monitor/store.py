@@ -68,6 +68,8 @@ def to_output(seams: pl.DataFrame) -> pl.DataFrame:
     out = seams.select([expr.alias(name) for name, expr in _OUT])
     if "ctwd_basis" in seams.columns:
         out = out.with_columns(seams.get_column("ctwd_basis"))
+    if "tip_change" in seams.columns:  # optional contact-tip-change marker (cell.toml [export] tip_change)
+        out = out.with_columns(seams.get_column("tip_change").cast(pl.Boolean))
     return out.cast({c: _DTYPES.get(c, pl.Float64) for c in OUTPUT_COLUMNS}).sort(
         ["part", "start", "start_s", "source", "seam"], nulls_last=True)
 
