@@ -217,7 +217,7 @@ def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
     return t.alias("t"), ts.alias("ts")
 
 
-def scan_samples(path: Path, spec: ExportSpec) -> Samples:
+def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Samples:
     """Lazy canonical frame of one export file (``Samples.frame``).
 
     Columns: ``t`` [s], ``ts`` (UTC or null), ``current`` [A], ``voltage`` [V], ``wire_feed``
@@ -225,13 +225,18 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
     null if not mapped). Rows stay in file order: loggers write in time order, and a file whose
     timestamps go backwards is caught per seam downstream rather than silently re-sorted.
 
+    ``encoding="utf8-lossy"`` reads a CSV whose bytes are not all UTF-8, replacing the bad ones
+    (U+FFFD); the repair is then listed in ``Samples.notes``.
+
     Raises
     ------
     IngestError
         Unreadable file, or a required column missing (the message lists the columns found).
     """
     notes: list[str] = []
-    lf = _lazy(path, spec)
+    if encoding != "utf8" and file_format(path) == "csv":
+        notes.append("repaired: bytes that are not UTF-8 replaced (export encoding is not UTF-8?)")
+    lf = _lazy(path, spec, encoding=encoding)
     try:
         schema = _schema(lf)
     except IngestError as exc:
@@ -263,6 +268,21 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
 
     def raw(ch, alias: str) -> pl.Expr:
         dt = schema[ch.column]
+        if dt == pl.String:
+            # Text where numbers were expected: an all-empty column (read as text), a decimal
+            # comma, or a stray word. Find the first offender (one lazy pass, only on this path).
+            c = pl.col(ch.column).str.strip_chars()
+            bad = (lf.with_row_index("_i").filter(c.is_not_null() & (c != "") & c.cast(pl.Float64, strict=False).is_null())
+                   .select("_i", ch.column).head(1).collect())
+            if bad.height == 0:
+                return c.replace("", None).cast(pl.Float64) * ch.scale
+            v, line = bad[ch.column][0], bad["_i"][0] + 2
+            if pl.Series([v.strip()]).str.contains(r"^[+-]?\d+,\d+$")[0]:
+                raise IngestError(f'decimal comma? column {ch.column} ({alias.replace("_", " ")}) holds text like '
+                                  f'"{v.strip()}" (line {line})')
+            found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
+            raise IngestError(found or f'line {line}: column {ch.column} ({alias.replace("_", " ")}) holds '
+                              f'{_show(v)}, not a number')
         if not (dt.is_numeric() or dt == pl.Null):
             found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
             raise IngestError(found or f'column "{ch.column}" ({alias}) holds {dt}, not numbers; '

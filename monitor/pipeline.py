@@ -105,6 +105,16 @@ def _quality_notes(q: dict, spec, rows: int) -> tuple[str | None, list[str]]:
     return None, notes
 
 
+def _collect(path: Path, cfg: Config, encoding: str = "utf8"):
+    """One lazy pass: seam aggregates, the file-level checks and (labelled files) the seam labels."""
+    samples = scan_samples(path, cfg.cell.export, encoding=encoding)
+    agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
+    jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
+    if samples.has_seam:
+        jobs.append(samples.frame.select("serial", "seam").unique())
+    return pl.collect_all(jobs), samples
+
+
 def _stat_key(path: Path) -> tuple[int, int]:
     st = path.stat()
     return st.st_size, st.st_mtime_ns
@@ -145,12 +155,13 @@ def scan_file(
         return skip(f"cannot be read ({exc.strerror})", size)
     spec = cfg.cell.export
     try:
-        samples = scan_samples(path, spec)
-        agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
-        jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
-        if samples.has_seam:
-            jobs.append(samples.frame.select("serial", "seam").unique())
-        got = pl.collect_all(jobs)
+        try:
+            got, samples = _collect(path, cfg)
+        except (pl.exceptions.ComputeError, IngestError) as exc:
+            if fmt != "csv" or "utf-8" not in str(exc).lower():
+                raise
+            # Repair: a latin-1 serial or comment must not cost the night's data.
+            got, samples = _collect(path, cfg, encoding="utf8-lossy")
         agg, quality = got[0], got[1].row(0, named=True)
         rows = int(quality["rows"])
     except IngestError as exc:
