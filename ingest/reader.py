@@ -55,7 +55,7 @@ def _gb(n: int) -> str:
     return f"{n / 1e9:.1f} GB" if n >= 1e8 else f"{n / 1e6:.1f} MB"
 
 
-def probe_file(path: Path, max_bytes: int = MAX_FILE_BYTES) -> None:
+def probe_file(path: Path, max_bytes: int | None = None) -> None:
     """Cheap checks before any parsing: size, sparseness, head and tail bytes.
 
     Reads at most 2 x 64 KiB whatever the file's size, so a 10 GB pre-allocated (sparse) file or a
@@ -66,6 +66,7 @@ def probe_file(path: Path, max_bytes: int = MAX_FILE_BYTES) -> None:
     IngestError
         With the one-line reason.
     """
+    max_bytes = MAX_FILE_BYTES if max_bytes is None else max_bytes
     st = path.stat()
     size = st.st_size
     if size == 0:

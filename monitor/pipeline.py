@@ -144,7 +144,7 @@ def scan_file(
         return skip(f"cannot be read ({exc.strerror})")
     size = before[0]
     try:
-        probe_file(path, cfg.cell.export.max_file_bytes if hasattr(cfg.cell.export, "max_file_bytes") else 4 * 2**30)
+        probe_file(path)
     except IngestError as exc:
         return skip(str(exc), size)
     except OSError as exc:
