@@ -8,6 +8,7 @@ import json
 import os
 import shutil
 import tempfile
+import time
 import uuid
 from collections.abc import Callable
 from dataclasses import asdict
@@ -135,6 +136,17 @@ def _sha256(path: Path) -> str:
         return hashlib.file_digest(fh, "sha256").hexdigest()
 
 
+def _fault_pause() -> None:
+    """Fault-injection hook for the kill test: ``CTWD_COMMIT_PAUSE=<s>`` sleeps at each commit step.
+
+    Unset in normal use (no pause); the test sets it so that random SIGKILLs land inside the
+    commit as often as outside it.
+    """
+    pause = os.environ.get("CTWD_COMMIT_PAUSE")
+    if pause:
+        time.sleep(float(pause))
+
+
 def recover(out_dir: Path) -> str | None:
     """Finish or discard an interrupted commit in ``out_dir``; called before every scan.
 
@@ -161,6 +173,7 @@ def recover(out_dir: Path) -> str | None:
                 src = stage / name
                 if src.exists():
                     os.replace(src, out_dir / name)
+                    _fault_pause()
             _fsync_dir(out_dir)
             done = f"finished the interrupted commit of run {plan.get('run_id')}"
         journal.unlink(missing_ok=True)
@@ -197,10 +210,13 @@ def write_outputs(out_dir: Path, seams_out: pl.DataFrame, files: list[FileRecord
         out_dir.mkdir(parents=True, exist_ok=True)
         stage.mkdir()
         seams_out.write_parquet(stage / "seams.parquet")
+        _fault_pause()
         _csv_frame(seams_out).write_csv(stage / "seams.csv")
+        _fault_pause()
         files_frame(files).write_csv(stage / "files.csv")
         for name, text in (extra or {}).items():
             (stage / name).write_text(text, encoding="utf-8")
+        _fault_pause()
         names = sorted(p.name for p in stage.iterdir())
         run["outputs"] = {n: _sha256(stage / n) for n in names}
         (stage / "run.json").write_text(json.dumps(run, indent=2, default=str) + "\n", encoding="utf-8")
@@ -209,7 +225,9 @@ def write_outputs(out_dir: Path, seams_out: pl.DataFrame, files: list[FileRecord
                 os.fsync(fh.fileno())
         _fsync_dir(stage)
         plan = {"run_id": run_id, "staging": stage.name, "files": [*names, "run.json"]}
+        _fault_pause()
         atomic_write(out_dir / JOURNAL, lambda p: p.write_text(json.dumps(plan), encoding="utf-8"))
+        _fault_pause()
     except OSError as exc:
         shutil.rmtree(stage, ignore_errors=True)
         why = "disk full" if exc.errno == errno.ENOSPC else (exc.strerror or str(exc))
