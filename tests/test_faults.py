@@ -179,6 +179,9 @@ def test_second_scan_is_refused_with_who_and_since(tmp_path, cfg):
     out = tmp_path / "out"
     logs = _logs(tmp_path / "logs", n=1)
     with scan_lock(out):
+        with pytest.raises(ScanBusy, match="another scan is running since"):
+            with scan_lock(out):
+                pass
         res = CliRunner().invoke(main, ["scan", str(logs), "--config", str(CONFIG_DIR), "--out", str(out), "-q"])
     assert res.exit_code == 3
     line = res.output.strip()
