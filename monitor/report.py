@@ -107,6 +107,7 @@ def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: P
         flagged=flagged.to_dicts(),
         invalid=invalid.to_dicts(),
         skipped=skipped.to_dicts() if skipped.height else [],
+        noted=files.filter(pl.col("note").is_not_null()).to_dicts() if "note" in files.columns else [],
         n_files=files.height,
         plots=plots,
         per_part=per_part.to_dicts() if per_part.height else [],

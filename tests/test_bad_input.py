@@ -177,3 +177,17 @@ def test_same_size_rewrite_caught_by_checksum(tmp_path, cfg, monkeypatch):
     monkeypatch.setattr(pipeline, "_collect", rewrite)
     df, rec = scan_file(p, cfg)
     assert df is None and rec.error == CHANGED
+
+
+def test_page_lists_skipped_reasons_and_repairs(corpus_run):
+    """The morning page carries the same one-line reasons and repair notes as files.csv, HTML-escaped
+    (escaping as done by markupsafe, the library jinja2's autoescape uses)."""
+    from markupsafe import escape
+
+    _logs, out, files, _seams = corpus_run
+    page = (out / "summary.html").read_text(encoding="utf-8")
+    for r in files.iter_rows(named=True):
+        if r["status"] == "skipped":
+            assert str(escape(r["error"])) in page, r["error"]
+        if r["note"]:
+            assert str(escape(r["note"])) in page, r["note"]
