@@ -84,6 +84,8 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
         "finished_at": _now(),
         "elapsed_s": round(time.perf_counter() - t0, 3),
         "config_dir": str(cfg.root.resolve()),
+        "paths": [str(Path(p).resolve()) for p in paths],
+        "out_dir": str(Path(out).resolve()),
         "config_digest": cfg.digest,
         "config_files": [str(f) for f in cfg.files],
         "inputs": [{"path": f.source, "size_bytes": f.size_bytes, "sha256": f.sha256, "status": f.status,

@@ -99,7 +99,7 @@ def test_kill_at_random_points_leaves_old_or_complete_results(tmp_path):
     work = time.perf_counter() - t_lock
     rng = random.Random(20261201)
     outcomes = {"as before": 0, "complete (new run)": 0, "rolled forward at next start": 0}
-    budget = 15.0  # seconds of kill loop; with the first and last full runs the test stays under 60 s
+    budget = 12.0  # seconds of kill loop; with the first and last full runs the test stays under 60 s
     start = time.perf_counter()
     iterations = 0
     while time.perf_counter() - start < budget or iterations < 5:

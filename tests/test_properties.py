@@ -54,7 +54,10 @@ def tables(draw):
     return pl.DataFrame(cols), fmt
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+_SEEN = {"examples": 0, "read": 0, "skipped": 0}
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(tables())
 def test_arbitrary_tables_never_crash_the_scan(tmp_path, table):
     df, fmt = table
@@ -66,6 +69,8 @@ def test_arbitrary_tables_never_crash_the_scan(tmp_path, table):
     judged, rec = scan_file(p, CFG)
     assert isinstance(rec, FileRecord)
     assert rec.status in ("read", "skipped")
+    _SEEN["examples"] += 1
+    _SEEN[rec.status] += 1
     if rec.status == "skipped":
         assert rec.error and "\n" not in rec.error
     if judged is not None:
@@ -73,8 +78,12 @@ def test_arbitrary_tables_never_crash_the_scan(tmp_path, table):
 
 
 def test_arbitrary_tables_figure():
-    # the property above ran its examples without a crash if we get here in the same session
-    record("property", "arbitrary tables (hypothesis, CSV and Parquet)", "never crashed", "60 examples a run", examples=60)
+    """Report how many arbitrary tables the property above scanned (it runs first, same module)."""
+    if _SEEN["examples"] == 0:
+        pytest.skip("the property test was not run in this session")
+    assert _SEEN["read"] + _SEEN["skipped"] == _SEEN["examples"]
+    record("property", "arbitrary tables (hypothesis, CSV and Parquet)", "never crashed",
+           f"{_SEEN['examples']} tables: {_SEEN['read']} read, {_SEEN['skipped']} skipped with a reason", **_SEEN)
 
 
 # Physical range of GMAW with solid steel wire (common practice, no source): CTWD 5-40 mm,
