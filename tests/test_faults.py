@@ -102,7 +102,8 @@ def test_kill_at_random_points_leaves_old_or_complete_results(tmp_path):
     budget = 12.0  # seconds of kill loop; with the first and last full runs the test stays under 60 s
     start = time.perf_counter()
     iterations = 0
-    while time.perf_counter() - start < budget or iterations < 5:
+    # time-bounded: on a busy machine each scan is slower and fewer kills fit; at least 3 are made
+    while time.perf_counter() - start < budget or iterations < 3:
         before = consistent_run_id(out)
         proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         _until_locked(proc, out)
