@@ -80,6 +80,22 @@ def _until_locked(proc: subprocess.Popen, out: Path, timeout: float = 30.0) -> f
     return time.perf_counter() - t0
 
 
+# A `ctwd scan` that imports everything first, then waits for its gate file: the next victim
+# warms up while the current one is being killed, so each kill costs the scan's work, not the
+# interpreter's start-up. Past the gate it is exactly `python -m monitor.cli scan ...`.
+_GATED = """
+import sys, time
+from pathlib import Path
+import matplotlib.pyplot, polars, monitor.cli, monitor.pipeline, monitor.report, monitor.store, monitor.units
+monitor.units.registry()
+gate = Path(sys.argv[1])
+while not gate.exists():
+    time.sleep(0.002)
+sys.argv = ["ctwd", *sys.argv[2:]]
+monitor.cli.main()
+"""
+
+
 def test_kill_at_random_points_leaves_old_or_complete_results(tmp_path):
     """SIGKILL a `ctwd scan` subprocess at random moments of its work, many times (< 60 s in all).
 
@@ -89,23 +105,34 @@ def test_kill_at_random_points_leaves_old_or_complete_results(tmp_path):
     """
     logs = _logs(tmp_path / "logs")
     out = tmp_path / "out"
+    gates = tmp_path / "gates"
+    gates.mkdir()
     env = {**os.environ, "PYTHONPATH": str(ROOT), "CTWD_COMMIT_PAUSE": "0.05"}
-    cmd = [sys.executable, "-m", "monitor.cli", "scan", str(logs), "--config", str(CONFIG_DIR), "--out", str(out),
-           "-q", "--no-page"]
-    proc = subprocess.Popen(cmd, env=env)
+    args = ["scan", str(logs), "--config", str(CONFIG_DIR), "--out", str(out), "-q", "--no-page"]
+
+    def spawn(k: int) -> tuple[subprocess.Popen, Path]:
+        gate = gates / f"go-{k}"
+        return subprocess.Popen([sys.executable, "-c", _GATED, str(gate), *args], env=env,
+                                stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL), gate
+
+    proc, gate = spawn(0)
+    waiting = [spawn(1), spawn(2)]  # two warm victims in reserve
+    gate.touch()
     _until_locked(proc, out)
     t_lock = time.perf_counter()
     assert proc.wait(timeout=60) == 0
     work = time.perf_counter() - t_lock
     rng = random.Random(20261201)
     outcomes = {"as before": 0, "complete (new run)": 0, "rolled forward at next start": 0}
-    budget = 12.0  # seconds of kill loop; with the first and last full runs the test stays under 60 s
+    budget = 20.0  # seconds of kill loop; with the first and last full runs the test stays under 60 s
     start = time.perf_counter()
     iterations = 0
     # time-bounded: on a busy machine each scan is slower and fewer kills fit; at least 3 are made
     while time.perf_counter() - start < budget or iterations < 3:
         before = consistent_run_id(out)
-        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        proc, gate = waiting.pop(0)
+        waiting.append(spawn(iterations + 3))
+        gate.touch()
         _until_locked(proc, out)
         time.sleep(rng.uniform(0.0, 1.1 * work))
         proc.send_signal(signal.SIGKILL)
@@ -123,8 +150,12 @@ def test_kill_at_random_points_leaves_old_or_complete_results(tmp_path):
             outcomes["as before" if after == before else "complete (new run)"] += 1
         assert not any(p.name.startswith(".staging-") for p in out.iterdir())
     # and the next run completes normally (the killed scan's stale lock is recovered)
-    res = subprocess.run(cmd, env={**env, "CTWD_COMMIT_PAUSE": ""}, capture_output=True, text=True, timeout=60)
-    assert res.returncode == 0, res.stderr
+    proc, gate = waiting.pop(0)
+    gate.touch()
+    assert proc.wait(timeout=60) == 0
+    for spare, _gate in waiting:
+        spare.kill()
+        spare.wait(timeout=30)
     final = consistent_run_id(out)
     assert final is not None and not (out / LOCK_NAME).exists()
     elapsed = time.perf_counter() - start
