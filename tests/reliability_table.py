@@ -34,7 +34,7 @@ def render(rows: list[dict]) -> str:
     kills = [r for r in rows if r["test"] == "kill"]
     steps = [r for r in rows if r["test"] == "kill_steps"]
     lines = ["| Check | Result |", "|---|---|"]
-    lines.append(f"| Bad-input kinds tried | {len(bad)} — " + ", ".join(f"{n} {o}" for o, n in sorted(outcomes.items()))
+    lines.append(f"| Bad-input kinds tried | {len(bad)} — " + "; ".join(f"{n} {o}" for o, n in sorted(outcomes.items()))
                  + " |")
     if by.get("config_error"):
         lines.append(f"| Config errors (exit 2, one line naming file and key, no log read) | {by['config_error']} kinds |")

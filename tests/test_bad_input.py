@@ -115,7 +115,7 @@ def test_sparse_file_fails_fast_without_reading(corpus_run, cfg):
     assert df is None and rec.status == "skipped" and "sparse" in rec.error
     assert rec.sha256 is None  # not even hashed
     assert dt < 1.0, f"took {dt:.2f} s"
-    record("bad_input_timing", "10 GB sparse file", "skipped", f"refused in {dt * 1e3:.0f} ms", seconds=dt)
+    record("bad_input_timing", "10 GB sparse file", "skipped", f"refused in {dt * 1e3:.1f} ms", seconds=dt)
 
 
 def test_large_dense_file_refused_by_size_before_reading(tmp_path, cfg, monkeypatch):

@@ -17,7 +17,7 @@ def test_render_counts_what_was_recorded():
         {"test": "lock", "kind": "second scan", "outcome": "refused", "detail": "another scan is running since t (pid 1)"},
     ]
     md = render(rows)
-    assert "| Bad-input kinds tried | 2 — 1 invalid, 1 skipped |" in md
+    assert "| Bad-input kinds tried | 2 — 1 invalid; 1 skipped |" in md
     assert "7 kills survived (5 as before, 2 complete (new run))" in md
     assert "a \\| b" in md  # pipes escaped so the table stays a table
     # 3 summary rows (bad-input count, kill, lock) + the second header + 2 per-kind rows
