@@ -10,7 +10,7 @@ import polars as pl
 from ingest.schema import ExportSpec
 
 __all__ = ["IngestError", "Samples", "scan_samples", "SUFFIXES", "file_format", "probe_file", "HARD_LIMITS",
-           "MAX_FILE_BYTES"]
+           "MAX_FILE_BYTES", "diagnose_csv", "polars_reason"]
 
 #: One export larger than this is skipped without being read (a night of one cell at 1 kHz is ~1 GB of CSV).
 MAX_FILE_BYTES = 4 * 2**30
@@ -277,12 +277,14 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
                    .select("_i", ch.column).head(1).collect())
             if bad.height == 0:
                 return c.replace("", None).cast(pl.Float64) * ch.scale
-            v, line = bad[ch.column][0], bad["_i"][0] + 2
+            is_csv = file_format(path) == "csv"
+            v = bad[ch.column][0]
+            where = f"line {bad['_i'][0] + 2}" if is_csv else f"row {bad['_i'][0] + 1}"
             if pl.Series([v.strip()]).str.contains(r"^[+-]?\d+,\d+$")[0]:
                 raise IngestError(f'decimal comma? column {ch.column} ({alias.replace("_", " ")}) holds text like '
-                                  f'"{v.strip()}" (line {line})')
-            found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
-            raise IngestError(found or f'line {line}: column {ch.column} ({alias.replace("_", " ")}) holds '
+                                  f'"{v.strip()}" ({where})')
+            found = diagnose_csv(path, spec) if is_csv else None
+            raise IngestError(found or f'{where}: column {ch.column} ({alias.replace("_", " ")}) holds '
                               f'{_show(v)}, not a number')
         if not (dt.is_numeric() or dt == pl.Null):
             found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
