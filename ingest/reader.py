@@ -42,7 +42,8 @@ class Samples:
     #: repairs made while reading (one line each), e.g. bytes that were not UTF-8
     notes: tuple[str, ...] = ()
     #: one-row lazy frame of file-level checks: ``rows``, ``<ch>_nulls``, ``<ch>_absurd``,
-    #: ``<ch>_max`` (SI, over plausible readings), ``dup_t``, ``tz_offsets`` (see :func:`scan_samples`)
+    #: ``<ch>_max`` (SI, over plausible readings), ``dup_t``, ``tz_offsets``, ``seam_labels`` (labelled
+    #: files: every "serial\u241fseam" key)
     quality: pl.LazyFrame | None = None
 
 
@@ -321,12 +322,24 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         checks += [x.is_null().sum().alias(f"{alias}_nulls"),
                    (x.is_not_null() & ~ok & ~x.is_nan()).sum().alias(f"{alias}_absurd"),
                    x.filter(ok).max().alias(f"{alias}_max")]
-    checks.append((t.diff() == 0).sum().alias("dup_t"))
+    # repeated timestamps compared as logged (no second parse of the time column)
+    checks.append((pl.col(spec.time) == pl.col(spec.time).shift(1)).sum().alias("dup_t"))
     if schema[spec.time] == pl.String:
-        offsets = pl.col(spec.time).str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1)
-        checks.append(offsets.drop_nulls().unique().sort().str.join(", ").alias("tz_offsets"))
+        # the last 6 characters hold the offset ("+01:00", "-0500", "Z"); the regex runs on the
+        # few distinct endings only, not on every row
+        ends = pl.col(spec.time).str.slice(-6).unique()
+        offsets = ends.str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1).drop_nulls().unique().sort()
+        checks.append(offsets.str.join(", ").alias("tz_offsets"))
     else:
         checks.append(pl.lit(None, dtype=pl.String).alias("tz_offsets"))
+    if present["seam"]:
+        # every (serial, seam) label of the file, keyed as ingest.seams keys labelled seams
+        serial = pl.col(spec.serial).cast(pl.String).fill_null("") if present["serial"] else pl.lit("")
+        key = serial + "\u241f" + pl.col(spec.seam).cast(pl.String)
+        checks.append(key.drop_nulls().unique().implode().alias("seam_labels"))
+    # The seam aggregates and the checks read the same columns: one parse, shared through a
+    # cache node when both are collected together (pl.collect_all), instead of two parses.
+    lf = lf.cache()
     return Samples(frame=lf.select(exprs), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
                    has_serial=present["serial"], has_travel_speed=has_travel, notes=tuple(notes),
                    quality=lf.select(checks))

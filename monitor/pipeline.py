@@ -110,8 +110,6 @@ def _collect(path: Path, cfg: Config, encoding: str = "utf8"):
     samples = scan_samples(path, cfg.cell.export, encoding=encoding)
     agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
     jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
-    if samples.has_seam:
-        jobs.append(samples.frame.select("serial", "seam").unique())
     return pl.collect_all(jobs), samples
 
 
@@ -188,11 +186,11 @@ def scan_file(
             return skip(f"no arc-on samples: current peaks at {cmax / spec.current.scale:.3g} {spec.current.unit}, "
                         f"below the {cfg.cell.arc.min_current:g} A arc-on threshold — {hint}", size, digest, rows, 0)
         return None, FileRecord(source, fmt, size, digest, rows, 0, "read", "no arc-on seams found", "; ".join(notes) or None)
-    if samples.has_seam:
-        labels = got[2].drop_nulls("seam")
-        missing = labels.join(agg.select("serial", "seam"), on=["serial", "seam"], how="anti", nulls_equal=True)
-        if missing.height:
-            shown = ", ".join(sorted(set(missing["seam"].to_list()))[:8])
+    labels = quality.get("seam_labels")
+    if samples.has_seam and labels:
+        missing = set(labels) - set(agg["seam_key"].to_list())
+        if missing:
+            shown = ", ".join(sorted({m.split("\u241f", 1)[1] for m in missing})[:8])
             notes.append(f"seam {shown}: no arc-on samples (current never above {cfg.cell.arc.min_current:g} A); not judged")
     fallback = resolve_part(path.name, cfg, part)
     agg = agg.with_columns(pl.col("part").fill_null(pl.lit(fallback, dtype=pl.String)), pl.lit(source).alias("source"))
