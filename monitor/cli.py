@@ -89,7 +89,7 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
         "config_digest": cfg.digest,
         "config_files": [str(f) for f in cfg.files],
         "inputs": [{"path": f.source, "size_bytes": f.size_bytes, "sha256": f.sha256, "status": f.status,
-                    "rows": f.rows, "seams": f.seams, "error": f.error} for f in result.files],
+                    "rows": f.rows, "seams": f.seams, "error": f.error, "note": f.note} for f in result.files],
         "counts": {"files": len(result.files), "files_skipped": sum(f.status == "skipped" for f in result.files),
                    "seams": seams.height, **counts},
         "notes": notes,
@@ -114,6 +114,9 @@ def _run_or_exit(paths: list[Path], cfg: Config, out: Path, **kw) -> dict:
         sys.exit(EXIT_BUSY)
     except OutputWriteError as exc:
         click.echo(f"ctwd: {exc.strerror}", err=True)
+        sys.exit(EXIT_WRITE)
+    except OSError as exc:  # --out cannot be created or locked (read-only, not a folder...)
+        click.echo(f"ctwd: cannot use {out} for results ({exc.strerror or exc}); nothing written", err=True)
         sys.exit(EXIT_WRITE)
 
 
@@ -161,7 +164,8 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
     """Scan log exports (files and/or folders) and judge every seam.
 
     Exit code: 0 when the scan ran (alarms or not), 1 with --fail-on when such seams exist,
-    2 for usage or config errors.
+    2 for usage or config errors, 3 when another scan holds the results folder's lock, 4 when
+    the results cannot be written (the previous results are kept).
     """
     try:
         cfg = load_config(config_dir)
