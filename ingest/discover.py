@@ -2,12 +2,23 @@
 
 from __future__ import annotations
 
+import errno
 import os
 from pathlib import Path
 
 from ingest.reader import file_format
 
 __all__ = ["discover"]
+
+
+def _link_problem(path: Path) -> str:
+    """Why a symbolic link cannot be followed: a loop, or a target that is gone."""
+    try:
+        os.stat(path)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            return "symbolic link loop (the link points back to itself); skipped"
+    return "broken symbolic link (its target is gone)"
 
 
 def discover(paths: list[Path]) -> tuple[list[Path], list[tuple[Path, str]]]:
@@ -33,7 +44,7 @@ def discover(paths: list[Path]) -> tuple[list[Path], list[tuple[Path, str]]]:
                 found[p] = None
             continue
         if not p.exists():
-            problems.append((p, "no such file or folder" if not p.is_symlink() else "broken symbolic link"))
+            problems.append((p, "no such file or folder" if not p.is_symlink() else _link_problem(p)))
             continue
         if p.is_dir():
             def on_error(e: OSError, top: Path = p) -> None:
@@ -47,7 +58,7 @@ def discover(paths: list[Path]) -> tuple[list[Path], list[tuple[Path, str]]]:
                     f = Path(root) / name
                     if file_format(f) is not None:
                         if f.is_symlink() and not f.exists():
-                            problems.append((f, "broken symbolic link"))
+                            problems.append((f, _link_problem(f)))
                         else:
                             found[f] = None
             continue

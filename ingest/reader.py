@@ -9,7 +9,18 @@ import polars as pl
 
 from ingest.schema import ExportSpec
 
-__all__ = ["IngestError", "Samples", "scan_samples", "SUFFIXES", "file_format"]
+__all__ = ["IngestError", "Samples", "scan_samples", "SUFFIXES", "file_format", "probe_file", "HARD_LIMITS",
+           "MAX_FILE_BYTES", "diagnose_csv", "polars_reason"]
+
+#: One export larger than this is skipped without being read (a night of one cell at 1 kHz is ~1 GB of CSV).
+MAX_FILE_BYTES = 4 * 2**30
+_PROBE = 64 * 1024  # bytes read from the head and the tail of a file before trusting it
+
+#: Readings beyond these (SI) cannot come from a GMAW power source: sensor sentinels (-9999, 1e9) or
+#: saturated channels. They are set to null (then counted as dropouts) and the repair is reported.
+#: Deliberately wide, so that a units mistake (kA for A, in/min for m/min) stays visible as such.
+#: Common practice for GMAW, no source.
+HARD_LIMITS = {"current": (-100.0, 10_000.0), "voltage": (-100.0, 1_000.0), "wire_feed": (-1.0, 10.0)}
 
 SUFFIXES = {".csv": "csv", ".txt": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
@@ -28,6 +39,12 @@ class Samples:
     has_part: bool
     has_serial: bool
     has_travel_speed: bool
+    #: repairs made while reading (one line each), e.g. bytes that were not UTF-8
+    notes: tuple[str, ...] = ()
+    #: one-row lazy frame of file-level checks: ``rows``, ``<ch>_nulls``, ``<ch>_absurd``,
+    #: ``<ch>_max`` (SI, over plausible readings), ``dup_t``, ``tz_offsets``, ``seam_labels`` (labelled
+    #: files: every "serial\u241fseam" key)
+    quality: pl.LazyFrame | None = None
 
 
 def file_format(path: Path) -> str | None:
@@ -35,7 +52,54 @@ def file_format(path: Path) -> str | None:
     return SUFFIXES.get(path.suffix.lower())
 
 
-def _lazy(path: Path, spec: ExportSpec) -> pl.LazyFrame:
+def _gb(n: int) -> str:
+    return f"{n / 1e9:.1f} GB" if n >= 1e8 else f"{n / 1e6:.1f} MB"
+
+
+def probe_file(path: Path, max_bytes: int | None = None) -> None:
+    """Cheap checks before any parsing: size, sparseness, head and tail bytes.
+
+    Reads at most 2 x 64 KiB whatever the file's size, so a 10 GB pre-allocated (sparse) file or a
+    cut Parquet file fails in milliseconds instead of being read into memory.
+
+    Raises
+    ------
+    IngestError
+        With the one-line reason.
+    """
+    max_bytes = MAX_FILE_BYTES if max_bytes is None else max_bytes
+    st = path.stat()
+    size = st.st_size
+    if size == 0:
+        raise IngestError("file is empty")
+    on_disk = getattr(st, "st_blocks", None)
+    if on_disk is not None and size > 16 * 2**20 and on_disk * 512 < size // 2:
+        raise IngestError(f"sparse file: {_gb(size)} long but only {_gb(on_disk * 512)} on disk "
+                          "(pre-allocated by the logger and not yet written?); skipped without reading")
+    if size > max_bytes:
+        raise IngestError(f"file is {_gb(size)}, over the {_gb(max_bytes)} limit for one export; "
+                          "skipped without reading (split the export)")
+    with open(path, "rb") as fh:
+        head = fh.read(_PROBE)
+        if size > _PROBE:
+            fh.seek(max(size - _PROBE, _PROBE))
+            tail = fh.read(_PROBE)
+        else:
+            tail = head
+    fmt = file_format(path)
+    if fmt == "parquet":
+        if head[:4] != b"PAR1":
+            raise IngestError("not a Parquet file (no Parquet marker at the start)")
+        if size < 12 or tail[-4:] != b"PAR1":
+            raise IngestError("truncated Parquet file: the end marker is missing (copy or export cut short?)")
+    elif fmt == "csv":
+        if b"\0" in head or b"\0" in tail:
+            where = "start" if b"\0" in head else "end"
+            raise IngestError(f"binary data (NUL bytes) near the {where} of a text export "
+                              "(not a CSV, or a cell still writing into a pre-allocated file?)")
+
+
+def _lazy(path: Path, spec: ExportSpec, encoding: str = "utf8") -> pl.LazyFrame:
     fmt = file_format(path)
     if fmt == "parquet":
         return pl.scan_parquet(path)
@@ -43,18 +107,99 @@ def _lazy(path: Path, spec: ExportSpec) -> pl.LazyFrame:
         # Every column as text first would be slow; let polars infer, but never guess the
         # separator: a wrong one shows up as a missing column, which is reported as such.
         return pl.scan_csv(path, separator=spec.csv_separator, infer_schema_length=10_000,
-                           encoding="utf8", ignore_errors=False)
+                           encoding=encoding, ignore_errors=False)
     raise IngestError(f"not a CSV or Parquet export (suffix {path.suffix!r})")
+
+
+def _lines(path: Path) -> pl.DataFrame:
+    """The raw lines of a text file, one a row (diagnosis only, never on the good path)."""
+    return pl.read_csv(path, has_header=False, separator="\x1f", quote_char=None, new_columns=["line"],
+                       schema={"line": pl.String}, encoding="utf8-lossy")
+
+
+def diagnose_csv(path: Path, spec: ExportSpec) -> str | None:
+    """After polars failed on a CSV: find the first offending line and say what is wrong with it.
+
+    Returns a one-line reason, or None when nothing specific was found. Vectorised over the
+    lines (polars string expressions), run only on files that already failed.
+    """
+    try:
+        lines = _lines(path).with_row_index("n", offset=1)
+    except (pl.exceptions.PolarsError, OSError):
+        return None
+    if lines.height == 0:
+        return None
+    sep = spec.csv_separator
+    header = lines["line"][0] or ""
+    expected = header.count(sep) + 1
+    fields = lines.with_columns((pl.col("line").str.count_matches(sep, literal=True) + 1).alias("k"))
+    odd = fields.filter((pl.col("n") > 1) & (pl.col("k") != expected) & (pl.col("line").str.len_bytes() > 0))
+    if odd.height:
+        n, k, text = odd["n"][0], odd["k"][0], odd["line"][0]
+        what = "garbage or truncated line?" if k < expected else "garbage line, or a separator inside a value?"
+        more = f"; {odd.height} such lines" if odd.height > 1 else ""
+        return (f"line {n}: {k} field{'s' if k != 1 else ''} where {expected} were expected ({what}) "
+                f"{_show(text)}{more}")
+    names = header.split(sep)
+    body = fields.filter(pl.col("n") > 1).with_columns(pl.col("line").str.split(sep).alias("f"))
+    for ch, what in ((spec.current, "current"), (spec.voltage, "voltage"), (spec.wire_feed, "wire feed")):
+        if ch.column not in names:
+            continue
+        j = names.index(ch.column)
+        vals = body.select("n", pl.col("f").list.get(j, null_on_oob=True).str.strip_chars().alias("v"))
+        bad = vals.filter(pl.col("v").is_not_null() & (pl.col("v") != "")
+                          & pl.col("v").cast(pl.Float64, strict=False).is_null())
+        if bad.height:
+            n, v = bad["n"][0], bad["v"][0]
+            if pl.Series([v]).str.contains(r"^[+-]?\d+,\d+$")[0]:
+                return f'decimal comma? column {ch.column} ({what}) holds text like "{v}" (line {n})'
+            return f'line {n}: column {ch.column} ({what}) holds "{v[:40]}", not a number'
+    if spec.time in names:
+        j = names.index(spec.time)
+        vals = body.select("n", pl.col("f").list.get(j, null_on_oob=True).str.strip_chars().alias("v"))
+        numeric = vals["v"].cast(pl.Float64, strict=False).is_not_null()
+        if not numeric.all():
+            has_tz = vals["v"].str.contains(r"(Z|[+-]\d\d:?\d\d)$")
+            if has_tz.any() and not has_tz.all():
+                i = int((~has_tz).arg_max() if has_tz[0] else has_tz.arg_max())
+                return (f'line {vals["n"][i]}: time "{vals["v"][i]}" mixes timestamps with and without a UTC offset '
+                        "(mixed time zones?)")
+            parsed = vals["v"].str.to_datetime(time_zone="UTC", time_unit="us", strict=False)
+            bad = vals.filter(parsed.is_null() & vals["v"].is_not_null())
+            if bad.height:
+                return f'line {bad["n"][0]}: time "{bad["v"][0][:40]}" is not a timestamp or a number of seconds'
+    return None
+
+
+def _show(text: str | None) -> str:
+    t = (text or "").strip()
+    return f'"{t[:40]}{"..." if len(t) > 40 else ""}"' if t else "(empty)"
+
+
+def polars_reason(exc: BaseException) -> str:
+    """A short plain reason for a polars/IO error whose location could not be found."""
+    text = str(exc).strip()
+    low = text.lower()
+    if "utf-8" in low or "utf8" in low:
+        return "text is not UTF-8 (export encoding?)"
+    if "parquet" in low or "thrift" in low or "out of spec" in low or "footer" in low:
+        return "Parquet file is damaged (cut short or overwritten?)"
+    if "more fields" in low:
+        return "a line has more fields than the header (garbage line, or a separator inside a value?)"
+    if "conversion from" in low and "failed in column" in low:
+        col = text.split("failed in column", 1)[1].split("for", 1)[0].strip(" '\"")
+        return f'column "{col}" holds values that are not numbers or timestamps'
+    first = text.splitlines()[0] if text else type(exc).__name__
+    return f"cannot be read ({first[:100]})"
 
 
 def _schema(lf: pl.LazyFrame) -> pl.Schema:
     try:
         return lf.collect_schema()
     except pl.exceptions.NoDataError:
-        raise IngestError("file is empty") from None
+        raise IngestError("no data: the file has no header line") from None
     except (pl.exceptions.ComputeError, OSError, pl.exceptions.PolarsError) as exc:
-        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise IngestError(f"cannot be read: {msg[:200]}") from None
+        raise IngestError(polars_reason(exc)) from None
 
 
 def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
@@ -74,7 +219,7 @@ def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
     return t.alias("t"), ts.alias("ts")
 
 
-def scan_samples(path: Path, spec: ExportSpec) -> Samples:
+def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Samples:
     """Lazy canonical frame of one export file (``Samples.frame``).
 
     Columns: ``t`` [s], ``ts`` (UTC or null), ``current`` [A], ``voltage`` [V], ``wire_feed``
@@ -82,13 +227,28 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
     null if not mapped). Rows stay in file order: loggers write in time order, and a file whose
     timestamps go backwards is caught per seam downstream rather than silently re-sorted.
 
+    ``encoding="utf8-lossy"`` reads a CSV whose bytes are not all UTF-8, replacing the bad ones
+    (U+FFFD); the repair is then listed in ``Samples.notes``.
+
     Raises
     ------
     IngestError
         Unreadable file, or a required column missing (the message lists the columns found).
     """
-    lf = _lazy(path, spec)
-    schema = _schema(lf)
+    notes: list[str] = []
+    if encoding != "utf8" and file_format(path) == "csv":
+        notes.append("repaired: bytes that are not UTF-8 replaced (export encoding is not UTF-8?)")
+    lf = _lazy(path, spec, encoding=encoding)
+    try:
+        schema = _schema(lf)
+    except IngestError as exc:
+        if file_format(path) != "csv" or "UTF-8" not in str(exc):
+            raise
+        # Repair: a latin-1 serial or comment must not cost the night's data. Bytes that are
+        # not UTF-8 become U+FFFD; a numeric column hit by one still fails below, by name.
+        lf = _lazy(path, spec, encoding="utf8-lossy")
+        schema = _schema(lf)
+        notes.append("repaired: bytes that are not UTF-8 replaced (export encoding is not UTF-8?)")
     names = list(schema.names())
     if not names:
         raise IngestError("file has no columns")
@@ -96,6 +256,11 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
     def need(col: str, what: str) -> None:
         if col not in schema:
             shown = ", ".join(names[:12]) + (", ..." if len(names) > 12 else "")
+            if len(names) == 1 and spec.csv_separator not in names[0]:
+                for other, label in ((";", "semicolon"), ("\t", "tab"), ("|", "bar"), (",", "comma")):
+                    if other != spec.csv_separator and other in names[0]:
+                        raise IngestError(f"wrong delimiter? the header is one column on {spec.csv_separator!r} "
+                                          f"but contains {label}s: {_show(names[0])} (set [export] csv_separator)")
             raise IngestError(f'column "{col}" ({what}) not found; columns are: {shown}')
 
     need(spec.time, "time")
@@ -103,11 +268,37 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
         need(ch.column, what)
     t, ts = _time_expr(spec.time, schema[spec.time])
 
-    def chan(ch, alias: str) -> pl.Expr:
+    def raw(ch, alias: str) -> pl.Expr:
         dt = schema[ch.column]
+        if dt == pl.String:
+            # Text where numbers were expected: an all-empty column (read as text), a decimal
+            # comma, or a stray word. Find the first offender (one lazy pass, only on this path).
+            c = pl.col(ch.column).str.strip_chars()
+            bad = (lf.with_row_index("_i").filter(c.is_not_null() & (c != "") & c.cast(pl.Float64, strict=False).is_null())
+                   .select("_i", ch.column).head(1).collect())
+            if bad.height == 0:
+                return c.replace("", None).cast(pl.Float64) * ch.scale
+            is_csv = file_format(path) == "csv"
+            v = bad[ch.column][0]
+            where = f"line {bad['_i'][0] + 2}" if is_csv else f"row {bad['_i'][0] + 1}"
+            if pl.Series([v.strip()]).str.contains(r"^[+-]?\d+,\d+$")[0]:
+                raise IngestError(f'decimal comma? column {ch.column} ({alias.replace("_", " ")}) holds text like '
+                                  f'"{v.strip()}" ({where})')
+            found = diagnose_csv(path, spec) if is_csv else None
+            raise IngestError(found or f'{where}: column {ch.column} ({alias.replace("_", " ")}) holds '
+                              f'{_show(v)}, not a number')
         if not (dt.is_numeric() or dt == pl.Null):
-            raise IngestError(f'column "{ch.column}" ({alias}) holds {dt}, not numbers; decimal comma or wrong separator?')
-        return (pl.col(ch.column).cast(pl.Float64) * ch.scale).alias(alias)
+            found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
+            raise IngestError(found or f'column "{ch.column}" ({alias}) holds {dt}, not numbers; '
+                              "decimal comma or wrong separator?")
+        return pl.col(ch.column).cast(pl.Float64) * ch.scale
+
+    def chan(ch, alias: str) -> pl.Expr:
+        x = raw(ch, alias)
+        lim = HARD_LIMITS.get(alias)
+        if lim is not None:
+            x = pl.when(x.is_between(*lim) | x.is_null()).then(x).otherwise(None)
+        return x.alias(alias)
 
     exprs = [t, ts, chan(spec.current, "current"), chan(spec.voltage, "voltage"), chan(spec.wire_feed, "wire_feed")]
     if spec.travel_speed is not None and spec.travel_speed.column in schema:
@@ -128,5 +319,32 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
         exprs.append(marker.fill_null(False).alias("tip_change"))
     present = {alias: opt is not None and opt in schema
                for opt, alias in ((spec.seam, "seam"), (spec.part, "part"), (spec.serial, "serial"))}
+    checks = [pl.len().alias("rows")]
+    for ch, alias in ((spec.current, "current"), (spec.voltage, "voltage"), (spec.wire_feed, "wire_feed")):
+        x = raw(ch, alias)
+        lo, hi = HARD_LIMITS[alias]
+        ok = x.is_between(lo, hi)
+        checks += [x.is_null().sum().alias(f"{alias}_nulls"),
+                   (x.is_not_null() & ~ok & ~x.is_nan()).sum().alias(f"{alias}_absurd"),
+                   x.filter(ok).max().alias(f"{alias}_max")]
+    # repeated timestamps compared as logged (no second parse of the time column)
+    checks.append((pl.col(spec.time) == pl.col(spec.time).shift(1)).sum().alias("dup_t"))
+    if schema[spec.time] == pl.String:
+        # the last 6 characters hold the offset ("+01:00", "-0500", "Z"); the regex runs on the
+        # few distinct endings only, not on every row
+        ends = pl.col(spec.time).str.slice(-6).unique()
+        offsets = ends.str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1).drop_nulls().unique().sort()
+        checks.append(offsets.str.join(", ").alias("tz_offsets"))
+    else:
+        checks.append(pl.lit(None, dtype=pl.String).alias("tz_offsets"))
+    if present["seam"]:
+        # every (serial, seam) label of the file, keyed as ingest.seams keys labelled seams
+        serial = pl.col(spec.serial).cast(pl.String).fill_null("") if present["serial"] else pl.lit("")
+        key = serial + "\u241f" + pl.col(spec.seam).cast(pl.String)
+        checks.append(key.drop_nulls().unique().implode().alias("seam_labels"))
+    # The seam aggregates and the checks read the same columns: one parse, shared through a
+    # cache node when both are collected together (pl.collect_all), instead of two parses.
+    lf = lf.cache()
     return Samples(frame=lf.select(exprs), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
-                   has_serial=present["serial"], has_travel_speed=has_travel)
+                   has_serial=present["serial"], has_travel_speed=has_travel, notes=tuple(notes),
+                   quality=lf.select(checks))

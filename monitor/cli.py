@@ -18,6 +18,7 @@ from monitor.config import Config, ConfigError, load_config
 __all__ = ["main", "run_scan"]
 
 EXIT_OK, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
+EXIT_BUSY, EXIT_WRITE = 3, 4  # another scan holds the lock; results could not be written (previous kept)
 
 
 def _fail_config(exc: ConfigError) -> None:
@@ -34,11 +35,26 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
     """Scan, write all outputs into ``out``, return run.json's content.
 
     With ``history`` (a folder), tonight's seams are judged for drift against it and appended.
+    Holds ``out``'s scan lock (:class:`monitor.lock.ScanBusy` if another scan runs), finishes or
+    discards an interrupted earlier commit first, and publishes all outputs at once
+    (:class:`monitor.store.OutputWriteError` if they cannot be written; the old ones are kept).
     """
+    from monitor.lock import scan_lock
+
+    notes: list[str] = []
+    with scan_lock(out, notes):
+        return _run_scan_locked(paths, cfg, out, part, page, quiet, notes, history)
+
+
+def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None, page: bool, quiet: bool,
+                     notes: list[str], history: Path | None = None) -> dict:
     from monitor.pipeline import scan_paths
     from monitor.report import render_page
-    from monitor.store import atomic_write, to_output, write_outputs
+    from monitor.store import files_frame, recover, to_output, write_outputs
 
+    recovered = recover(out)
+    if recovered:
+        notes.append(recovered)
     started = _now()
     t0 = time.perf_counter()
     bar = None
@@ -74,20 +90,41 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
         "finished_at": _now(),
         "elapsed_s": round(time.perf_counter() - t0, 3),
         "config_dir": str(cfg.root.resolve()),
+        "paths": [str(Path(p).resolve()) for p in paths],
+        "out_dir": str(Path(out).resolve()),
         "config_digest": cfg.digest,
         "config_files": [str(f) for f in cfg.files],
         "inputs": [{"path": f.source, "size_bytes": f.size_bytes, "sha256": f.sha256, "status": f.status,
-                    "rows": f.rows, "seams": f.seams, "error": f.error} for f in result.files],
+                    "rows": f.rows, "seams": f.seams, "error": f.error, "note": f.note} for f in result.files],
         "counts": {"files": len(result.files), "files_skipped": sum(f.status == "skipped" for f in result.files),
                    "seams": seams.height, **counts},
         **drift_info,
+        "notes": notes,
     }
-    write_outputs(out, seams, result.files, run)
+    extra = {}
     if page:
-        files_df = pl.read_csv(out / "files.csv", infer_schema=False) if (out / "files.csv").exists() else pl.DataFrame()
-        html = render_page(seams, files_df, run, out / "summary.html", cfg=cfg)
-        atomic_write(out / "summary.html", lambda p: p.write_text(html, encoding="utf-8"))
+        files_df = files_frame(result.files).cast(pl.String)
+        extra["summary.html"] = render_page(seams, files_df, run, out / "summary.html", cfg=cfg)
+    write_outputs(out, seams, result.files, run, extra=extra)
     return run
+
+
+def _run_or_exit(paths: list[Path], cfg: Config, out: Path, **kw) -> dict:
+    """run_scan, turning a busy lock or a failed write into one line and an exit code."""
+    from monitor.lock import ScanBusy
+    from monitor.store import OutputWriteError
+
+    try:
+        return run_scan(paths, cfg, out, **kw)
+    except ScanBusy as exc:
+        click.echo(f"ctwd: {exc}", err=True)
+        sys.exit(EXIT_BUSY)
+    except OutputWriteError as exc:
+        click.echo(f"ctwd: {exc.strerror}", err=True)
+        sys.exit(EXIT_WRITE)
+    except OSError as exc:  # --out cannot be created or locked (read-only, not a folder...)
+        click.echo(f"ctwd: cannot use {out} for results ({exc.strerror or exc}); nothing written", err=True)
+        sys.exit(EXIT_WRITE)
 
 
 def _print_summary(run: dict, out: Path, page: bool) -> None:
@@ -137,7 +174,8 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
     """Scan log exports (files and/or folders) and judge every seam.
 
     Exit code: 0 when the scan ran (alarms or not), 1 with --fail-on when such seams exist,
-    2 for usage or config errors.
+    2 for usage or config errors, 3 when another scan holds the results folder's lock, 4 when
+    the results cannot be written (the previous results are kept).
     """
     try:
         cfg = load_config(config_dir)
@@ -151,7 +189,7 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
         from monitor.history import default_history_dir
 
         history_dir = default_history_dir(config_dir)
-    run = run_scan(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet,
+    run = _run_or_exit(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet,
                    history=None if no_history else history_dir)
     if not quiet:
         _print_summary(run, out_dir, not no_page)
@@ -211,7 +249,7 @@ def demo(out_dir: Path) -> None:
     except ConfigError as exc:
         _fail_config(exc)
     click.echo(f"demo: scanning {logs} with config {config_dir}")
-    run = run_scan([logs], cfg, out_dir)
+    run = _run_or_exit([logs], cfg, out_dir)
     _print_summary(run, out_dir, True)
     click.echo(f"open {(out_dir / 'summary.html').resolve().as_uri()} in a browser")
 

@@ -14,7 +14,7 @@ from pathlib import Path
 import polars as pl
 
 from ingest.discover import discover
-from ingest.reader import IngestError, file_format, scan_samples
+from ingest.reader import IngestError, diagnose_csv, file_format, polars_reason, probe_file, scan_samples
 from ingest.seams import seam_aggregates
 from monitor.config import Config, safe_name
 from monitor.estimate import estimate
@@ -33,6 +33,7 @@ class FileRecord:
     seams: int | None
     status: str  # "read" or "skipped"
     error: str | None = None
+    note: str | None = None  # repairs made and things worth knowing about a file that was read
 
 
 @dataclass
@@ -59,41 +60,162 @@ def resolve_part(file_name: str, cfg: Config, override: str | None) -> str | Non
     return override
 
 
+# Alternative units a channel is commonly logged in, tried when a mean is implausible (SI factors).
+_UNIT_GUESSES = {
+    "current": (("A", 1.0), ("kA", 1e3), ("mA", 1e-3)),
+    "voltage": (("V", 1.0), ("mV", 1e-3), ("dV", 0.1)),
+    "wire_feed": (("m/min", 1 / 60), ("in/min", 0.0254 / 60), ("mm/s", 1e-3), ("m/s", 1.0), ("cm/min", 1e-2 / 60)),
+}
+_PLAUSIBLE = {"current": (30.0, 800.0), "voltage": (8.0, 50.0), "wire_feed": (0.5 / 60, 30.0 / 60)}
+
+
+def units_hint(channel: str, value_si: float, scale: float, unit: str) -> str | None:
+    """"kA logged but config says A?" when ``value_si`` is implausible and another unit fits.
+
+    ``scale`` is the configured factor to SI, so ``value_si / scale`` is the number in the log.
+    Ranges: common practice for GMAW, no source (the same as the judge's).
+    """
+    if value_si is None or scale == 0 or not value_si == value_si:
+        return None
+    lo, hi = _PLAUSIBLE[channel]
+    logged = value_si / scale
+    for name, factor in _UNIT_GUESSES[channel]:
+        if name != unit and lo <= logged * factor <= hi:
+            return f"{name} logged but config says {unit}? (units?)"
+    return None
+
+
+def _quality_notes(q: dict, spec, rows: int) -> tuple[str | None, list[str]]:
+    """(reason to skip the file or None, notes) from the reader's one-row quality frame."""
+    notes: list[str] = []
+    chans = (("current", spec.current), ("voltage", spec.voltage), ("wire_feed", spec.wire_feed))
+    for alias, ch in chans:
+        if rows and q[f"{alias}_nulls"] == rows:
+            return f'column {ch.column} ({alias.replace("_", " ")}) is empty on every row (sensor not connected?)', notes
+    for alias, ch in chans:
+        n = q[f"{alias}_absurd"]
+        if n:
+            notes.append(f"repaired: {n} impossible {alias.replace('_', ' ')} readings in {ch.column} "
+                         "(sensor sentinel or saturation) treated as dropouts")
+    if q.get("dup_t"):
+        notes.append(f"{q['dup_t']} repeated timestamps (kept)")
+    tz = q.get("tz_offsets")
+    if tz and "," in tz:
+        notes.append(f"repaired: timestamps carry mixed UTC offsets ({tz}); all converted to UTC")
+    return None, notes
+
+
+def _collect(path: Path, cfg: Config, encoding: str = "utf8"):
+    """One lazy pass: seam aggregates, the file-level checks and (labelled files) the seam labels."""
+    samples = scan_samples(path, cfg.cell.export, encoding=encoding)
+    agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
+    jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
+    return pl.collect_all(jobs), samples
+
+
+def _stat_key(path: Path) -> tuple[int, int]:
+    st = path.stat()
+    return st.st_size, st.st_mtime_ns
+
+
+CHANGED = "file changed while being read (cell still writing?); skipped, will be read next run"
+
+
 def scan_file(
     path: Path, cfg: Config, part: str | None = None, label: str | None = None
 ) -> tuple[pl.DataFrame | None, FileRecord]:
-    """Scan one export file. Never raises for bad input: the record carries the reason."""
+    """Scan one export file. Never raises for bad input: the record carries the one-line reason.
+
+    Order of checks: stat, a cheap probe of size and head/tail bytes (a 10 GB sparse file or a cut
+    Parquet file is refused without being read), checksum, the lazy scan, then stat and checksum
+    again: a file that changed meanwhile is skipped (its results would mix two versions).
+    """
     source = label or str(path)
     fmt = file_format(path) or "?"
+
+    def skip(reason: str, size=None, digest=None, rows=None, seams=None, note=None):
+        return None, FileRecord(source, fmt, size, digest, rows, seams, "skipped", reason, note)
+
     try:
-        size = path.stat().st_size
+        before = _stat_key(path)
     except OSError as exc:
-        return None, FileRecord(source, fmt, None, None, None, None, "skipped", f"cannot be read ({exc.strerror})")
+        return skip(f"cannot be read ({exc.strerror})")
+    size = before[0]
+    try:
+        probe_file(path)
+    except IngestError as exc:
+        return skip(str(exc), size)
+    except OSError as exc:
+        return skip(f"cannot be read ({exc.strerror})", size)
     try:
         digest = file_digest(path)
     except OSError as exc:
-        return None, FileRecord(source, fmt, size, None, None, None, "skipped", f"cannot be read ({exc.strerror})")
-    if size == 0:
-        return None, FileRecord(source, fmt, 0, digest, 0, 0, "skipped", "file is empty")
+        return skip(f"cannot be read ({exc.strerror})", size)
     spec = cfg.cell.export
     try:
-        samples = scan_samples(path, spec)
-        agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
-        agg, count = pl.collect_all([agg_lf, samples.frame.select(pl.len().alias("n"))])
-        rows = int(count["n"][0])
+        try:
+            got, samples = _collect(path, cfg)
+        except (pl.exceptions.ComputeError, IngestError) as exc:
+            if fmt != "csv" or "utf-8" not in str(exc).lower():
+                raise
+            # Repair: a latin-1 serial or comment must not cost the night's data.
+            got, samples = _collect(path, cfg, encoding="utf8-lossy")
+        agg, quality = got[0], got[1].row(0, named=True)
+        rows = int(quality["rows"])
     except IngestError as exc:
-        return None, FileRecord(source, fmt, size, digest, None, None, "skipped", str(exc))
+        return skip(str(exc), size, digest)
     except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
-        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        return None, FileRecord(source, fmt, size, digest, None, None, "skipped", f"cannot be read: {msg[:200]}")
+        found = diagnose_csv(path, spec) if fmt == "csv" else None
+        return skip(found or polars_reason(exc), size, digest)
+    try:
+        changed = _stat_key(path) != before or (size < 256 * 2**20 and file_digest(path) != digest)
+    except OSError:
+        changed = True
+    if changed:
+        return skip(CHANGED, size, digest)
     if rows == 0:
-        return None, FileRecord(source, fmt, size, digest, 0, 0, "skipped", "no data rows (header only)")
+        return skip("no data rows (header only)", size, digest, 0, 0)
+    bad, notes = _quality_notes(quality, spec, rows)
+    notes = [*samples.notes, *notes]
+    if bad is not None:
+        return skip(bad, size, digest, rows, 0, "; ".join(notes) or None)
     if agg.height == 0:
-        return None, FileRecord(source, fmt, size, digest, rows, 0, "read", "no arc-on seams found")
+        cmax = quality.get("current_max")
+        hint = units_hint("current", cmax, spec.current.scale, spec.current.unit) if cmax is not None else None
+        if hint:
+            return skip(f"no arc-on samples: current peaks at {cmax / spec.current.scale:.3g} {spec.current.unit}, "
+                        f"below the {cfg.cell.arc.min_current:g} A arc-on threshold — {hint}", size, digest, rows, 0)
+        return None, FileRecord(source, fmt, size, digest, rows, 0, "read", "no arc-on seams found", "; ".join(notes) or None)
+    labels = quality.get("seam_labels")
+    if samples.has_seam and labels:
+        missing = set(labels) - set(agg["seam_key"].to_list())
+        if missing:
+            shown = ", ".join(sorted({m.split("\u241f", 1)[1] for m in missing})[:8])
+            notes.append(f"seam {shown}: no arc-on samples (current never above {cfg.cell.arc.min_current:g} A); not judged")
     fallback = resolve_part(path.name, cfg, part)
     agg = agg.with_columns(pl.col("part").fill_null(pl.lit(fallback, dtype=pl.String)), pl.lit(source).alias("source"))
     judged = judge(estimate(agg, cfg), cfg.cell.arc)
-    return judged, FileRecord(source, fmt, size, digest, rows, judged.height, "read", None)
+    judged = _explain_units(judged, spec)
+    return judged, FileRecord(source, fmt, size, digest, rows, judged.height, "read", None, "; ".join(notes) or None)
+
+
+def _explain_units(judged: pl.DataFrame, spec) -> pl.DataFrame:
+    """Replace an "outside range; units?" reason by one that names the likely unit mix-up."""
+    if judged.height == 0 or not judged["reason"].str.contains("units?", literal=True).any():
+        return judged
+    reasons = []
+    for r in judged.select("status", "reason", "current_mean", "voltage_mean", "wire_feed_mean").iter_rows(named=True):
+        text = r["reason"]
+        if r["status"] == "invalid" and text and text.endswith("units?"):
+            for alias, ch, label in (("current", spec.current, "current"), ("voltage", spec.voltage, "voltage"),
+                                     ("wire_feed", spec.wire_feed, "WFS")):
+                if text.startswith(f"mean {label}"):
+                    v = r[f"{alias}_mean"]
+                    hint = units_hint(alias, v, ch.scale, ch.unit)
+                    if hint:
+                        text = f"{label} mean {v / ch.scale:.3g} {ch.unit} — {hint}"
+        reasons.append(text)
+    return judged.with_columns(pl.Series("reason", reasons, dtype=pl.String))
 
 
 def scan_paths(paths: list[Path], cfg: Config, part: str | None = None,

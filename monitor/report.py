@@ -445,6 +445,7 @@ def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: P
         invalid=invalid.to_dicts(),
         traced=traced,
         skipped=skipped,
+        noted=files.filter(pl.col("note").is_not_null()).to_dicts() if "note" in files.columns else [],
         n_files=files.height,
         files_link=files_link,
         plots=plots,
