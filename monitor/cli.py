@@ -30,7 +30,7 @@ def _now() -> str:
 
 
 def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None, page: bool = True,
-             quiet: bool = False) -> dict:
+             quiet: bool = False, jobs: int = 1, executor: str | None = None, cluster: str | None = None) -> dict:
     """Scan, write all outputs into ``out``, return run.json's content."""
     from monitor.pipeline import scan_paths
     from monitor.report import render_page
@@ -51,7 +51,7 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
             bar.update(1)
 
     try:
-        result = scan_paths(paths, cfg, part=part, progress=progress)
+        result = scan_paths(paths, cfg, part=part, progress=progress, jobs=jobs, executor=executor, cluster=cluster)
     finally:
         if bar is not None:
             bar.__exit__(None, None, None)
@@ -120,8 +120,14 @@ def main() -> None:
               help="Exit 1 when any seam is in alarm (or in watch or alarm).")
 @click.option("--no-page", is_flag=True, help="Do not write summary.html.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar, no summary.")
+@click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Scan this many files at once in worker processes.")
+@click.option("--executor", type=click.Choice(["local", "dask"]), default=None,
+              help="Where files are scanned: this machine (default) or a Dask cluster (extra 'cluster').")
+@click.option("--cluster", default=None, metavar="ADDRESS",
+              help="Dask scheduler address (tcp://host:8786) or local:N; implies --executor dask.")
 def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | None, fail_on: str | None,
-         no_page: bool, quiet: bool) -> None:
+         no_page: bool, quiet: bool, jobs: int, executor: str | None, cluster: str | None) -> None:
     """Scan log exports (files and/or folders) and judge every seam.
 
     Exit code: 0 when the scan ran (alarms or not), 1 with --fail-on when such seams exist,
@@ -135,7 +141,16 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
         click.echo(f'ctwd: --part "{part}" has no file in {config_dir / "parts"}; known parts: '
                    f'{", ".join(sorted(cfg.parts)) or "none"}', err=True)
         sys.exit(EXIT_USAGE)
-    run = run_scan(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet)
+    from monitor.parallel import ExecutorError
+
+    if cluster is not None and executor is None:
+        executor = "dask"
+    try:
+        run = run_scan(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet, jobs=jobs,
+                       executor=executor, cluster=cluster)
+    except ExecutorError as exc:
+        click.echo(f"ctwd: {exc}", err=True)
+        sys.exit(EXIT_USAGE)
     if not quiet:
         _print_summary(run, out_dir, not no_page)
     c = run["counts"]

@@ -15,7 +15,7 @@ import polars as pl
 
 from ingest.discover import discover
 from ingest.reader import IngestError, file_format, scan_samples
-from ingest.seams import seam_aggregates
+from ingest.seams import collect_seam_aggregates
 from monitor.config import Config, safe_name
 from monitor.estimate import estimate
 from monitor.judge import judge
@@ -78,9 +78,9 @@ def scan_file(
     spec = cfg.cell.export
     try:
         samples = scan_samples(path, spec)
-        agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
-        agg, count = pl.collect_all([agg_lf, samples.frame.select(pl.len().alias("n"))])
-        rows = int(count["n"][0])
+        # the streaming engine keeps memory bounded however long the file is
+        agg = collect_seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam, engine="streaming")
+        rows = int(samples.frame.select(pl.len()).collect(engine="streaming").item())
     except IngestError as exc:
         return None, FileRecord(source, fmt, size, digest, None, None, "skipped", str(exc))
     except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
@@ -97,13 +97,24 @@ def scan_file(
 
 
 def scan_paths(paths: list[Path], cfg: Config, part: str | None = None,
-               progress: Callable[[Path], None] | None = None) -> ScanResult:
-    """Scan every export under ``paths``; bad files are recorded, good ones kept."""
+               progress: Callable[[Path], None] | None = None, jobs: int = 1,
+               executor: str | None = None, cluster: str | None = None) -> ScanResult:
+    """Scan every export under ``paths``; bad files are recorded, good ones kept.
+
+    ``jobs`` > 1 scans files in that many worker processes; ``executor="dask"`` submits them to
+    the Dask cluster at ``cluster`` (see :mod:`monitor.parallel`). Results are gathered in file
+    order, so every way of running gives the same frame.
+    """
     files, problems = discover(paths)
     records = [FileRecord(str(p), file_format(p) or "?", None, None, None, None, "skipped", why) for p, why in problems]
     frames: list[pl.DataFrame] = []
-    for f in files:
-        df, rec = scan_file(f, cfg, part)
+    if jobs > 1 or executor not in (None, "local"):
+        from monitor.parallel import map_files
+
+        results = map_files(files, cfg, part, jobs=jobs, executor=executor, cluster=cluster)
+    else:
+        results = ((f, scan_file(f, cfg, part)) for f in files)
+    for f, (df, rec) in results:
         records.append(rec)
         if df is not None:
             frames.append(df)
