@@ -22,7 +22,10 @@ import polars as pl
 
 from monitor.config import Config
 
-__all__ = ["map_files", "scan_one", "ExecutorError"]
+__all__ = ["map_files", "scan_one", "ExecutorError", "CONNECT_TIMEOUT"]
+
+#: How long to wait for a Dask scheduler before giving up.
+CONNECT_TIMEOUT = "20s"
 
 
 class ExecutorError(RuntimeError):
@@ -55,7 +58,7 @@ def _client(cluster: str | None):
         lc = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
         return Client(lc), lc
     try:
-        return Client(cluster, timeout="20s"), None
+        return Client(cluster, timeout=CONNECT_TIMEOUT), None
     except (OSError, TimeoutError) as exc:
         raise ExecutorError(f"cannot reach the Dask scheduler at {cluster} ({exc})") from None
 
