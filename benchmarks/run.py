@@ -153,7 +153,8 @@ def main() -> None:
     scan, page, pandas = med["ctwd scan --no-page"], med["ctwd scan (with page)"], med["pandas reference"]
     print(f"\npandas reference / ctwd scan --no-page: {pandas['wall_s'] / scan['wall_s']:.1f}x (wall)")
     print(f"page adds: {page['wall_s'] - scan['wall_s']:.2f} s for {seams} seams")
-    print(f"CSV scan / bare polars CSV scan: {med['ctwd scan CSV --no-page']['wall_s'] / med['floor (polars, CSV)']['wall_s']:.2f}x")
+    csv_ratio = med["ctwd scan CSV --no-page"]["wall_s"] / med["floor (polars, CSV)"]["wall_s"]
+    print(f"CSV scan / bare polars CSV scan: {csv_ratio:.2f}x")
     if a.dask:
         print(f"dask 2 workers vs 1: {med['8 files, dask local:1']['wall_s'] / med['8 files, dask local:2']['wall_s']:.2f}x; "
               f"--jobs 2 vs 1: {med['8 files, --jobs 1']['wall_s'] / med['8 files, --jobs 2']['wall_s']:.2f}x")
