@@ -70,7 +70,9 @@ def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
     else:
         raise IngestError(f'time column "{name}" has type {dtype}; expected seconds or ISO-8601 timestamps')
     ts = ts.cast(pl.Datetime("us", "UTC"))
-    t = (ts - ts.first()).dt.total_microseconds().cast(pl.Float64) / 1e6
+    # t is derived from the parsed "ts" column (see scan_samples), so text is parsed once
+    tsc = pl.col("ts")
+    t = (tsc - tsc.first()).dt.total_microseconds().cast(pl.Float64) / 1e6
     return t.alias("t"), ts.alias("ts")
 
 
@@ -123,5 +125,9 @@ def scan_samples(path: Path, spec: ExportSpec) -> Samples:
             exprs.append(pl.lit(None, dtype=pl.String).alias(alias))
     present = {alias: opt is not None and opt in schema
                for opt, alias in ((spec.seam, "seam"), (spec.part, "part"), (spec.serial, "serial"))}
-    return Samples(frame=lf.select(exprs), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
+    if schema[spec.time].is_numeric():
+        frame = lf.select(exprs)
+    else:  # t from the parsed ts column
+        frame = lf.select(exprs[1:]).with_columns(exprs[0]).select("t", *[e.meta.output_name() for e in exprs[1:]])
+    return Samples(frame=frame, columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
                    has_serial=present["serial"], has_travel_speed=has_travel)
