@@ -31,10 +31,12 @@ def _now() -> str:
 
 
 def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None, page: bool = True,
-             quiet: bool = False, history: Path | None = None) -> dict:
+             quiet: bool = False, history: Path | None = None, jobs: int = 1, executor: str | None = None,
+             cluster: str | None = None) -> dict:
     """Scan, write all outputs into ``out``, return run.json's content.
 
     With ``history`` (a folder), tonight's seams are judged for drift against it and appended.
+    ``jobs``/``executor``/``cluster`` choose where files are scanned (monitor.parallel).
     Holds ``out``'s scan lock (:class:`monitor.lock.ScanBusy` if another scan runs), finishes or
     discards an interrupted earlier commit first, and publishes all outputs at once
     (:class:`monitor.store.OutputWriteError` if they cannot be written; the old ones are kept).
@@ -43,11 +45,12 @@ def run_scan(paths: list[Path], cfg: Config, out: Path, part: str | None = None,
 
     notes: list[str] = []
     with scan_lock(out, notes):
-        return _run_scan_locked(paths, cfg, out, part, page, quiet, notes, history)
+        return _run_scan_locked(paths, cfg, out, part, page, quiet, notes, history, jobs, executor, cluster)
 
 
 def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None, page: bool, quiet: bool,
-                     notes: list[str], history: Path | None = None) -> dict:
+                     notes: list[str], history: Path | None = None, jobs: int = 1, executor: str | None = None,
+                     cluster: str | None = None) -> dict:
     from monitor.pipeline import scan_paths
     from monitor.report import render_page
     from monitor.store import files_frame, recover, to_output, write_outputs
@@ -70,7 +73,7 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
             bar.update(1)
 
     try:
-        result = scan_paths(paths, cfg, part=part, progress=progress)
+        result = scan_paths(paths, cfg, part=part, progress=progress, jobs=jobs, executor=executor, cluster=cluster)
     finally:
         if bar is not None:
             bar.__exit__(None, None, None)
@@ -112,10 +115,14 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
 def _run_or_exit(paths: list[Path], cfg: Config, out: Path, **kw) -> dict:
     """run_scan, turning a busy lock or a failed write into one line and an exit code."""
     from monitor.lock import ScanBusy
+    from monitor.parallel import ExecutorError
     from monitor.store import OutputWriteError
 
     try:
         return run_scan(paths, cfg, out, **kw)
+    except ExecutorError as exc:
+        click.echo(f"ctwd: {exc}", err=True)
+        sys.exit(EXIT_USAGE)
     except ScanBusy as exc:
         click.echo(f"ctwd: {exc}", err=True)
         sys.exit(EXIT_BUSY)
@@ -169,8 +176,15 @@ def main() -> None:
 @click.option("--history", "history_dir", default=None, type=click.Path(path_type=Path, file_okay=False),
               help="Results history folder to judge drift against and append to [default: results/ beside the config].")
 @click.option("--no-history", is_flag=True, help="Neither read nor append the results history.")
+@click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Scan this many files at once in worker processes.")
+@click.option("--executor", type=click.Choice(["local", "dask"]), default=None,
+              help="Where files are scanned: this machine (default) or a Dask cluster (extra 'cluster').")
+@click.option("--cluster", default=None, metavar="ADDRESS",
+              help="Dask scheduler address (tcp://host:8786) or local:N; implies --executor dask.")
 def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | None, fail_on: str | None,
-         no_page: bool, quiet: bool, history_dir: Path | None = None, no_history: bool = False) -> None:
+         no_page: bool, quiet: bool, history_dir: Path | None = None, no_history: bool = False, jobs: int = 1,
+         executor: str | None = None, cluster: str | None = None) -> None:
     """Scan log exports (files and/or folders) and judge every seam.
 
     Exit code: 0 when the scan ran (alarms or not), 1 with --fail-on when such seams exist,
@@ -189,8 +203,10 @@ def scan(paths: tuple[Path, ...], config_dir: Path, out_dir: Path, part: str | N
         from monitor.history import default_history_dir
 
         history_dir = default_history_dir(config_dir)
+    if cluster is not None and executor is None:
+        executor = "dask"
     run = _run_or_exit(list(paths), cfg, out_dir, part=part, page=not no_page, quiet=quiet,
-                   history=None if no_history else history_dir)
+                       history=None if no_history else history_dir, jobs=jobs, executor=executor, cluster=cluster)
     if not quiet:
         _print_summary(run, out_dir, not no_page)
         if "history" in run:

@@ -15,7 +15,7 @@ import polars as pl
 
 from ingest.discover import discover
 from ingest.reader import IngestError, diagnose_csv, file_format, polars_reason, probe_file, scan_samples
-from ingest.seams import seam_aggregates
+from ingest.seams import run_aggregates, seam_aggregates
 from monitor.config import Config, safe_name
 from monitor.estimate import estimate
 from monitor.judge import judge
@@ -108,9 +108,16 @@ def _quality_notes(q: dict, spec, rows: int) -> tuple[str | None, list[str]]:
 def _collect(path: Path, cfg: Config, encoding: str = "utf8"):
     """One lazy pass: seam aggregates, the file-level checks and (labelled files) the seam labels."""
     samples = scan_samples(path, cfg.cell.export, encoding=encoding)
-    agg_lf = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
+    agg_lf = run_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
     jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
-    return pl.collect_all(jobs), samples
+    got = pl.collect_all(jobs)
+    agg = got[0]
+    if agg.height and int(agg["runs"].max()) > 1:
+        # a seam label recurs after another seam's samples: the window form spans the whole seam
+        agg = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam).collect()
+    else:
+        agg = agg.drop("runs")
+    return [agg, got[1]], samples
 
 
 def _stat_key(path: Path) -> tuple[int, int]:
@@ -219,13 +226,24 @@ def _explain_units(judged: pl.DataFrame, spec) -> pl.DataFrame:
 
 
 def scan_paths(paths: list[Path], cfg: Config, part: str | None = None,
-               progress: Callable[[Path], None] | None = None) -> ScanResult:
-    """Scan every export under ``paths``; bad files are recorded, good ones kept."""
+               progress: Callable[[Path], None] | None = None, jobs: int = 1,
+               executor: str | None = None, cluster: str | None = None) -> ScanResult:
+    """Scan every export under ``paths``; bad files are recorded, good ones kept.
+
+    ``jobs`` > 1 scans files in that many worker processes; ``executor="dask"`` submits them to
+    the Dask cluster at ``cluster`` (see :mod:`monitor.parallel`). Results are gathered in file
+    order, so every way of running gives the same frame.
+    """
     files, problems = discover(paths)
     records = [FileRecord(str(p), file_format(p) or "?", None, None, None, None, "skipped", why) for p, why in problems]
     frames: list[pl.DataFrame] = []
-    for f in files:
-        df, rec = scan_file(f, cfg, part)
+    if jobs > 1 or executor not in (None, "local"):
+        from monitor.parallel import map_files
+
+        results = map_files(files, cfg, part, jobs=jobs, executor=executor, cluster=cluster)
+    else:
+        results = ((f, scan_file(f, cfg, part)) for f in files)
+    for f, (df, rec) in results:
         records.append(rec)
         if df is not None:
             frames.append(df)

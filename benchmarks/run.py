@@ -1,0 +1,166 @@
+"""Benchmark: a simulated night at 1 kHz, scanned by ``ctwd scan`` against a bare polars floor and a pandas reference.
+
+    PYTHONPATH=. python benchmarks/run.py                # 2,000 seams x 10 s x 1 kHz (21 M rows), 3 repetitions
+    PYTHONPATH=. python benchmarks/run.py --small        # smoke run, well under a minute
+    PYTHONPATH=. python benchmarks/run.py --dask         # also: 8 files on a local Dask cluster, 1 vs 2 workers
+
+Every measurement is a fresh process; repetitions are interleaved (floor, scan, scan with page,
+pandas, CSV floor, CSV scan, then again) and the medians reported. Wall time is measured
+around the process, CPU time (user + system) and peak RSS come from ``os.wait4`` on that
+process. Input files are generated once (benchmarks/night.py) and kept in ``--work``.
+This is a measurement, never a test: nothing here asserts a time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import shutil
+import statistics
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "benchmarks"))
+
+FLOOR = """
+import sys, polars as pl
+src = sys.argv[1]
+lf = pl.scan_parquet(src) if src.endswith(".parquet") else pl.scan_csv(src)
+df = lf.group_by("serial", "seam").agg(
+    pl.col("current_a").mean().alias("i"), (pl.col("current_a") ** 2).mean().alias("i2"),
+    pl.col("voltage_v").mean().alias("v"), pl.col("wfs_m_min").mean().alias("w")).collect()
+print(df.height)
+"""
+
+# What a user would write instead: read everything, group, apply a Python function per seam.
+PANDAS = """
+import sys, numpy as np, pandas as pd
+d = pd.read_parquet(sys.argv[1])
+d["t"] = (d["time"] - d["time"].iloc[0]).dt.total_seconds()
+d = d[(d["current_a"] > 30) & d["seam"].notna()]
+def seam(g):
+    t0, t1 = g["t"].min(), g["t"].max()
+    k = g[(g["t"] >= t0 + 0.5) & (g["t"] <= t1 - 0.3)]
+    i = k["current_a"]
+    return pd.Series({"current": i.mean(), "current_sq": (i ** 2).mean(), "voltage": k["voltage_v"].mean(),
+                      "power": (i * k["voltage_v"]).mean(), "wfs": k["wfs_m_min"].mean(),
+                      "max_gap": k["t"].diff().max(), "n": len(k)})
+out = d.groupby(["serial", "seam"]).apply(seam)
+print(len(out))
+"""
+
+
+def _run(argv: list[str], env: dict) -> dict:
+    t = time.perf_counter()
+    p = subprocess.Popen(argv, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env, cwd=ROOT)
+    _, status, ru = os.wait4(p.pid, 0)
+    wall = time.perf_counter() - t
+    err = p.stderr.read().decode() if p.stderr else ""
+    p.returncode = os.waitstatus_to_exitcode(status)
+    if p.returncode != 0:
+        raise SystemExit(f"benchmark step failed ({' '.join(argv[:4])} ...): {err.strip()[-500:]}")
+    peak_kb = ru.ru_maxrss if sys.platform != "darwin" else ru.ru_maxrss / 1024
+    return {"wall_s": wall, "cpu_s": ru.ru_utime + ru.ru_stime, "peak_mb": peak_kb / 1024}
+
+
+def _dir_with(path: Path, name: str) -> Path:
+    d = path.parent / f"in_{name}"
+    d.mkdir(exist_ok=True)
+    link = d / path.name
+    if not link.exists():
+        link.symlink_to(path)
+    return d
+
+
+def _split(parquet: Path, n_files: int) -> Path:
+    import polars as pl
+
+    d = parquet.parent / f"split{n_files}"
+    if d.is_dir() and len(list(d.glob("*.parquet"))) == n_files:
+        return d
+    d.mkdir(exist_ok=True)
+    df = pl.read_parquet(parquet)
+    serials = df["serial"].unique(maintain_order=True)
+    for j, chunk in enumerate(serials.to_list()[i::n_files] for i in range(n_files)):
+        df.filter(pl.col("serial").is_in(chunk)).write_parquet(d / f"cell_TB7_{j:02d}.parquet", compression="zstd")
+    return d
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description="ctwd scan benchmark")
+    ap.add_argument("--small", action="store_true", help="smoke size: 60 seams x 4 s, one repetition")
+    ap.add_argument("--seams", type=int, default=None)
+    ap.add_argument("--seam-s", type=float, default=10.0)
+    ap.add_argument("--rate", type=float, default=1000.0)
+    ap.add_argument("--reps", type=int, default=None)
+    ap.add_argument("--dask", action="store_true", help="also time 8 files on a local Dask cluster, 1 vs 2 workers")
+    ap.add_argument("--work", type=Path, default=Path(os.environ.get("TMPDIR", "/tmp")) / "ctwd-bench")
+    ap.add_argument("--json", type=Path, default=None, help="write the medians here")
+    a = ap.parse_args()
+    seams = a.seams or (60 if a.small else 2000)
+    seam_s = 4.0 if a.small else a.seam_s
+    reps = a.reps or (1 if a.small else 3)
+
+    from night import write_night
+
+    paths = write_night(a.work, seams, seam_s, a.rate)
+    pq, csv = paths["parquet"], paths["csv"]
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    py = sys.executable
+    out = a.work / "out"
+    cli = [py, "-m", "monitor.cli", "scan", "--config", str(ROOT / "config"), "-q"]
+    steps = {
+        "floor (polars, Parquet)": [py, "-c", FLOOR, str(pq)],
+        "ctwd scan --no-page": [*cli, "--out", str(out / "a"), "--no-page", str(_dir_with(pq, "pq"))],
+        "ctwd scan (with page)": [*cli, "--out", str(out / "b"), str(_dir_with(pq, "pq"))],
+        "pandas reference": [py, "-c", PANDAS, str(pq)],
+        "floor (polars, CSV)": [py, "-c", FLOOR, str(csv)],
+        "ctwd scan CSV --no-page": [*cli, "--out", str(out / "c"), "--no-page", str(_dir_with(csv, "csv"))],
+    }
+    if a.dask:
+        split = _split(pq, 8)
+        steps["8 files, dask local:1"] = [*cli, "--out", str(out / "d1"), "--no-page", "--cluster", "local:1", str(split)]
+        steps["8 files, dask local:2"] = [*cli, "--out", str(out / "d2"), "--no-page", "--cluster", "local:2", str(split)]
+        steps["8 files, --jobs 1"] = [*cli, "--out", str(out / "j1"), "--no-page", str(split)]
+        steps["8 files, --jobs 2"] = [*cli, "--out", str(out / "j2"), "--no-page", "--jobs", "2", str(split)]
+    results: dict[str, list[dict]] = {k: [] for k in steps}
+    for rep in range(reps):
+        for name, argv in steps.items():
+            results[name].append(_run(argv, env))
+            print(f"  rep {rep + 1}/{reps} {name}: {results[name][-1]['wall_s']:.2f} s", file=sys.stderr, flush=True)
+    shutil.rmtree(out, ignore_errors=True)
+
+    med = {k: {m: statistics.median(r[m] for r in v) for m in ("wall_s", "cpu_s", "peak_mb")} for k, v in results.items()}
+    import polars as pl
+
+    rows = pl.scan_parquet(pq).select(pl.len()).collect().item()
+    print(f"\n{seams} seams x {seam_s:g} s at {a.rate:g} Hz = {rows:,} rows; Parquet {pq.stat().st_size / 2**20:.0f} MiB, "
+          f"CSV {csv.stat().st_size / 2**20:.0f} MiB; {reps} interleaved repetitions, medians; "
+          f"{os.cpu_count()} CPUs, Python {platform.python_version()}, polars {pl.__version__}\n")
+    floor = med["floor (polars, Parquet)"]
+    print(f"| {'step':<26} | wall s | CPU s | peak MiB | wall / floor | peak / floor |")
+    print(f"|{'-' * 28}|-------:|------:|---------:|-------------:|-------------:|")
+    for k, m in med.items():
+        ref = med["floor (polars, CSV)"] if "CSV" in k else floor
+        print(f"| {k:<26} | {m['wall_s']:6.2f} | {m['cpu_s']:5.2f} | {m['peak_mb']:8.0f} | "
+              f"{m['wall_s'] / ref['wall_s']:12.2f} | {m['peak_mb'] / ref['peak_mb']:12.2f} |")
+    scan, page, pandas = med["ctwd scan --no-page"], med["ctwd scan (with page)"], med["pandas reference"]
+    print(f"\npandas reference / ctwd scan --no-page: {pandas['wall_s'] / scan['wall_s']:.1f}x (wall)")
+    print(f"page adds: {page['wall_s'] - scan['wall_s']:.2f} s for {seams} seams")
+    csv_ratio = med["ctwd scan CSV --no-page"]["wall_s"] / med["floor (polars, CSV)"]["wall_s"]
+    print(f"CSV scan / bare polars CSV scan: {csv_ratio:.2f}x")
+    if a.dask:
+        print(f"dask 2 workers vs 1: {med['8 files, dask local:1']['wall_s'] / med['8 files, dask local:2']['wall_s']:.2f}x; "
+              f"--jobs 2 vs 1: {med['8 files, --jobs 1']['wall_s'] / med['8 files, --jobs 2']['wall_s']:.2f}x")
+    if a.json:
+        a.json.write_text(json.dumps({"rows": rows, "reps": reps, "medians": med}, indent=2))
+
+
+if __name__ == "__main__":
+    main()
