@@ -260,7 +260,7 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
                 for other, label in ((";", "semicolon"), ("\t", "tab"), ("|", "bar"), (",", "comma")):
                     if other != spec.csv_separator and other in names[0]:
                         raise IngestError(f"wrong delimiter? the header is one column on {spec.csv_separator!r} "
-                                          f"but contains {label}s: {_show(names[0])} (set [export] csv_separator)")
+                                          f"but contains {label}s: {_show(names[0])} (set separator in cell.toml [export])")
             raise IngestError(f'column "{col}" ({what}) not found; columns are: {shown}')
 
     need(spec.time, "time")
