@@ -270,8 +270,8 @@ def jackson_penetration(
 
     Notes
     -----
-    Jackson, C. E. (1960), "The science of arc welding", Welding Journal 39(4), 129-s to 140-s
-    (Adams lecture). An empirical scaling: trust it near the reference conditions (same joint,
+    Jackson, C. E. (1960), "The science of arc welding", Welding Journal 39(4), 129-s to 140-s.
+    An empirical scaling: trust it near the reference conditions (same joint,
     position, wire, gas and transfer mode; current within roughly ±30 % of the reference).
     """
     ei, ev, es = exponents
