@@ -78,6 +78,9 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
         if bar is not None:
             bar.__exit__(None, None, None)
     seams = to_output(result.seams)
+    from monitor.limits import with_limit_column
+
+    seams = with_limit_column(seams, cfg)  # the drift budget line on the page
     drift_info: dict = {}
     if history is not None:
         from monitor.drift import drift_with_history

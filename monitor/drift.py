@@ -320,7 +320,10 @@ def drift_with_history(seams_out: pl.DataFrame, files: list, cfg: Config, histor
     judged = drift_frame(both, settings_for)
     now = apply_drift_status(judged.filter(pl.col("_tonight")))
     now = now.drop("_tonight", KEY_COLUMN, "drift_index")
-    added = append_history(history, now, inputs)
+    from monitor.lock import scan_lock
+
+    with scan_lock(Path(history)):  # one writer at a time per history (ScanBusy otherwise)
+        added = append_history(history, now, inputs)
     info = {
         "history": {"root": str(history), "rows_added": added.rows_added, "files_written": len(added.files_written),
                     "inputs_already_present": len(set(sha_of.values()) & present)},

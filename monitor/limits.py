@@ -16,6 +16,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
+import polars as pl
 from scipy.optimize import brentq
 
 from monitor import physics
@@ -95,3 +96,19 @@ def part_limits(cfg: Config, part_name: str) -> list[SeamLimit]:
     part = cfg.parts[part_name]
     specs = list(part.seams.values()) or [part.defaults]
     return [seam_limit(cfg, part, s) for s in specs]
+
+
+def with_limit_column(seams: pl.DataFrame, cfg: Config) -> pl.DataFrame:
+    """Add ``limit_ctwd_mm``: each seam position's drift budget (null where there is none).
+
+    Computed once per (part, seam) pair present (O(seam positions)), then joined.
+    """
+    if seams.height == 0 or "part" not in seams.columns:
+        return seams
+    pairs = seams.select("part", "seam").unique().drop_nulls()
+    limits: list[float | None] = []
+    for part_name, seam in pairs.iter_rows():
+        part = cfg.parts.get(part_name)
+        limits.append(None if part is None else seam_limit(cfg, part, part.seam(seam)).limit_ctwd_mm)
+    table = pairs.with_columns(pl.Series("limit_ctwd_mm", limits, dtype=pl.Float64))
+    return seams.join(table, on=["part", "seam"], how="left", nulls_equal=True, maintain_order="left")
