@@ -114,7 +114,7 @@ def main() -> None:
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     py = sys.executable
     out = a.work / "out"
-    cli = [py, "-m", "monitor.cli", "scan", "--config", str(ROOT / "config"), "-q"]
+    cli = [py, "-m", "monitor.cli", "scan", "--config", str(ROOT / "config"), "-q", "--no-history"]
     steps = {
         "floor (polars, Parquet)": [py, "-c", FLOOR, str(pq)],
         "ctwd scan --no-page": [*cli, "--out", str(out / "a"), "--no-page", str(_dir_with(pq, "pq"))],
