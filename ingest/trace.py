@@ -89,12 +89,52 @@ def read_seam_trace(
     if not Path(path).is_file():
         raise IngestError(f"{path}: file not found")
     samples = scan_samples(Path(path), spec)
+    return _trace_from(samples.frame, samples.has_seam, samples.has_serial, path, arc, seam, serial, start_s,
+                       arc_time_s, max_points, margin_s)
+
+
+def read_seam_traces(
+    path: Path,
+    spec: ExportSpec,
+    arc: ArcSettings,
+    seams: list[tuple[str | None, str | None, float, float]],
+    max_points: int = 400,
+    margin_s: float = 0.5,
+) -> list[SeamTrace | None]:
+    """:func:`read_seam_trace` for several seams of one file, reading the file once.
+
+    ``seams`` holds ``(seam, serial, start_s, arc_time_s)`` per seam. One lazy pass keeps only
+    the samples inside any of the windows (a small frame, whatever the file's length); each
+    seam's trace is then decimated from that in memory.
+    """
+    if not Path(path).is_file():
+        raise IngestError(f"{path}: file not found")
+    if not seams:
+        return []
+    samples = scan_samples(Path(path), spec)
+    t = pl.col("t")
+    inside = pl.lit(False)
+    for _seam, _serial, start, dur in seams:
+        inside = inside | t.is_between(float(start) - margin_s, float(start) + float(dur) + margin_s)
+    try:
+        subset = samples.frame.filter(inside).collect().lazy()
+    except (pl.exceptions.PolarsError, OSError) as exc:
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise IngestError(f"{path}: cannot be read: {msg[:200]}") from None
+    return [_trace_from(subset, samples.has_seam, samples.has_serial, path, arc, seam, serial, start, dur,
+                        max_points, margin_s) for seam, serial, start, dur in seams]
+
+
+def _trace_from(frame: pl.LazyFrame, has_seam: bool, has_serial: bool, path: Path, arc: ArcSettings,
+                seam: str | None, serial: str | None, start_s: float, arc_time_s: float, max_points: int,
+                margin_s: float) -> SeamTrace | None:
     t0 = float(start_s)
     t1 = t0 + float(arc_time_s)
-    lf = samples.frame.filter(pl.col("t").is_between(t0 - margin_s, t1 + margin_s))
-    if samples.has_seam and seam is not None:
+    lf = frame.filter(pl.col("t").is_between(t0 - margin_s, t1 + margin_s))
+    samples_has_seam, samples_has_serial = has_seam, has_serial
+    if samples_has_seam and seam is not None:
         lf = lf.filter(pl.col("seam").is_null() | (pl.col("seam") == seam))
-    if samples.has_serial and serial is not None:
+    if samples_has_serial and serial is not None:
         lf = lf.filter(pl.col("serial").is_null() | (pl.col("serial") == serial))
     lf = lf.select((pl.col("t") - t0).alias("t"), *TRACE_CHANNELS)
     span = (t1 - t0) + 2 * margin_s

@@ -183,7 +183,7 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
     drawn because of ``max_traces``. One matplotlib figure is reused for every trace.
     """
     from ingest.reader import IngestError
-    from ingest.trace import read_seam_trace
+    from ingest.trace import read_seam_traces
 
     # alarms first, then invalid seams (a dropout is what a trace shows best), then watch
     rank = pl.col("status").replace_strict({"alarm": 0, "invalid": 1, "watch": 2}, default=3, return_dtype=pl.Int8)
@@ -203,18 +203,30 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
         ax.xaxis.set_major_locator(MaxNLocator(8))
     axes[-1].set_xlabel("time from arc start [s]")
     transient: list[Any] = []
+    # one read a source file for all its flagged seams (a long file is scanned once, not per seam)
+    pre: dict[int, Any] = {}
+    if cfg is not None:
+        by_source: dict[str, list[int]] = {}
+        for k, r in enumerate(rows):
+            by_source.setdefault(str(r["source"]), []).append(k)
+        for source, ks in by_source.items():
+            try:
+                got = read_seam_traces(Path(source), cfg.cell.export, cfg.cell.arc,
+                                       [(rows[k].get("seam"), rows[k].get("serial"), float(rows[k]["start_s"]),
+                                         float(rows[k]["arc_time_s"])) for k in ks], max_points=trace_points)
+                pre.update(zip(ks, got))
+            except (IngestError, OSError, TypeError, ValueError) as exc:
+                pre.update((k, exc) for k in ks)
     try:
-        for r in rows:
+        for k_row, r in enumerate(rows):
             item = {"row": r, "svg": None, "note": None}
             items.append(item)
             if cfg is None:
                 item["note"] = "trace not drawn: the scan's config folder is not available"
                 continue
-            try:
-                tr = read_seam_trace(Path(r["source"]), cfg.cell.export, cfg.cell.arc, r.get("seam"), r.get("serial"),
-                                     float(r["start_s"]), float(r["arc_time_s"]), max_points=trace_points)
-            except (IngestError, OSError, TypeError, ValueError) as exc:
-                item["note"] = f"trace not drawn: source file is gone or unreadable ({exc})"
+            tr = pre.get(k_row)
+            if isinstance(tr, Exception):
+                item["note"] = f"trace not drawn: source file is gone or unreadable ({tr})"
                 continue
             if tr is None:
                 item["note"] = "trace not drawn: no samples in the seam's window (file changed since the scan?)"

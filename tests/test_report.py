@@ -84,10 +84,11 @@ def test_traces_are_capped_and_the_rest_counted(night):
 
 
 def test_optional_drift_columns_are_shown_only_when_present(night):
+    seams = pl.read_parquet(night / "seams.parquet")
+    seams.drop("limit_ctwd_mm", strict=False).write_parquet(night / "seams.parquet")
     plain = render(night, max_traces=0, charts=False)
     assert "CTWD limit [mm]" not in plain and "parts to limit" not in plain
-    seams = pl.read_parquet(night / "seams.parquet")
-    seams.with_columns(
+    seams.drop("limit_ctwd_mm", strict=False).with_columns(
         (pl.col("ctwd_nominal_mm") + 4.5).alias("limit_ctwd_mm"),
         pl.lit(12.0).alias("parts_to_limit"),
         (pl.col("serial").str.ends_with("0125") & (pl.col("seam") == "S1")).alias("tip_change"),
