@@ -322,7 +322,7 @@ def drift_with_history(seams_out: pl.DataFrame, files: list, cfg: Config, histor
     now = now.drop("_tonight", KEY_COLUMN, "drift_index")
     from monitor.lock import scan_lock
 
-    with scan_lock(Path(history)):  # one writer at a time per history (ScanBusy otherwise)
+    with scan_lock(Path(history), reentrant=True):  # one writer at a time per history (ScanBusy otherwise)
         added = append_history(history, now, inputs)
     info = {
         "history": {"root": str(history), "rows_added": added.rows_added, "files_written": len(added.files_written),

@@ -54,14 +54,20 @@ def _read(path: Path) -> dict | None:
         return None
 
 
+#: lock files this process holds (re-entrant within one process, exclusive across processes)
+_HELD: set[Path] = set()
+
+
 @contextmanager
-def scan_lock(folder: Path, notes: list[str] | None = None) -> Iterator[Path]:
+def scan_lock(folder: Path, notes: list[str] | None = None, reentrant: bool = False) -> Iterator[Path]:
     """Hold ``folder/.ctwd-scan.lock`` for the duration of a scan.
 
     The lock file is created with O_CREAT|O_EXCL (atomic on local file systems) and holds the
     owner's pid, its start ticks, host and start time. A lock whose process is gone (killed scan,
     power cut) is stale: it is removed, a line saying so is appended to ``notes``, and the lock is
     taken.
+
+    With ``reentrant``, a lock this process already holds is simply used again.
 
     Raises
     ------
@@ -71,6 +77,10 @@ def scan_lock(folder: Path, notes: list[str] | None = None) -> Iterator[Path]:
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / LOCK_NAME
+    key = path.resolve()
+    if reentrant and key in _HELD:  # this process holds it already (--out and the history are one folder)
+        yield path
+        return
     me = {"pid": os.getpid(), "start_ticks": process_start_ticks(os.getpid()), "host": socket.gethostname(),
           "since": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")}
     for _attempt in range(3):
@@ -104,8 +114,10 @@ def scan_lock(folder: Path, notes: list[str] | None = None) -> Iterator[Path]:
         break
     else:
         raise ScanBusy(f"cannot take the lock {path} (another scan keeps replacing it)")
+    _HELD.add(key)
     try:
         yield path
     finally:
+        _HELD.discard(key)
         if (_read(path) or {}).get("pid") == me["pid"]:
             path.unlink(missing_ok=True)
