@@ -9,4 +9,11 @@ from importlib.metadata import PackageNotFoundError, version
 try:
     __version__ = version("ctwd-monitor")
 except PackageNotFoundError:  # running from a source tree that is not installed
-    __version__ = "0.0.0+unknown"
+    import tomllib
+    from pathlib import Path
+
+    try:
+        _meta = tomllib.loads((Path(__file__).resolve().parent.parent / "pyproject.toml").read_text(encoding="utf-8"))
+        __version__ = str(_meta["project"]["version"]) + "+source"
+    except (OSError, KeyError, tomllib.TOMLDecodeError):
+        __version__ = "0.0.0+unknown"
