@@ -31,7 +31,7 @@ sys.path.insert(0, str(ROOT.parent))
 from monitor import physics  # noqa: E402
 from monitor.config import load_config  # noqa: E402
 from monitor.pipeline import scan_paths  # noqa: E402
-from monitor.simulate import SeamPlan, simulate_log  # noqa: E402
+from monitor.simulate import SeamPlan, export_frame, simulate_log  # noqa: E402
 
 MORNING = datetime(2026, 11, 30, 7, 0, tzinfo=UTC)
 A_FACTOR, B_FACTOR = 1.03, 1.08  # this cell's wire relative to the illustrative coefficients
@@ -57,16 +57,7 @@ def coupons(cfg, rng: np.random.Generator) -> None:
             plans.append(SeamPlan(seam, true, wfs / 60, VOLTAGE[wfs] + 0.15 * (set_mm - 15), 8e-3, 6.0))
             known.append({"serial": serial, "seam": seam, "ctwd_mm": set_mm})
         df = simulate_log(plans, a, b, w.diameter, w.density, rate, rng)
-        ts = pl.lit(t_start) + pl.duration(microseconds=(pl.col("t") * 1e6).round(0).cast(pl.Int64))
-        df = df.with_columns(ts.dt.cast_time_unit("ms").alias("time")).select(
-            "time",
-            pl.lit(serial).alias("serial"),
-            "seam",
-            pl.col("current").round(1).alias("current_a"),
-            pl.col("voltage").round(2).alias("voltage_v"),
-            (pl.col("wire_feed") * 60).round(3).alias("wfs_m_min"),
-            (pl.col("travel_speed") * 1e3).round(2).alias("travel_mm_s"),
-        )
+        df = export_frame(df, t_start, serial=serial)
         (ROOT / "logs").mkdir(exist_ok=True)
         df.write_parquet(ROOT / "logs" / f"cal_wfs{wfs:02.0f}.parquet", compression="zstd", compression_level=9)
         t_start += timedelta(minutes=20)

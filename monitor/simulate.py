@@ -8,13 +8,14 @@ sensor noise and idle stretches between seams are added. Nothing here is used by
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime
 
 import numpy as np
 import polars as pl
 
 from monitor import physics
 
-__all__ = ["SeamPlan", "simulate_seam", "simulate_log", "ripple_waveform"]
+__all__ = ["SeamPlan", "simulate_seam", "simulate_log", "ripple_waveform", "export_frame"]
 
 
 @dataclass(frozen=True)
@@ -105,3 +106,28 @@ def simulate_log(plans: list[SeamPlan], a: float, b: float, diameter: float, den
                          "current": np.zeros(n_idle), "voltage": np.zeros(n_idle), "wire_feed": np.zeros(n_idle),
                          "travel_speed": np.zeros(n_idle)}, schema_overrides={"seam": pl.String})
     return pl.concat([*chunks, tail], how="vertical_relaxed")
+
+
+def export_frame(df: pl.DataFrame, start: datetime, part: str | None = None, serial: str | None = None,
+                 travel: bool = True) -> pl.DataFrame:
+    """A simulated log (:func:`simulate_log`) in the demo cells' export layout (config/cell.toml).
+
+    Columns: ``time`` (UTC timestamps, ms, from ``start``), ``part`` and ``serial`` when given,
+    ``seam``, ``current_a``, ``voltage_v``, ``wfs_m_min`` and, with ``travel``, ``travel_mm_s``;
+    values rounded as a power source logs them (0.1 A, 0.01 V, 0.001 m/min, 0.01 mm/s).
+    """
+    ts = pl.lit(start) + pl.duration(microseconds=(pl.col("t") * 1e6).round(0).cast(pl.Int64))
+    cols: list[pl.Expr | str] = [ts.dt.cast_time_unit("ms").alias("time")]
+    if part is not None:
+        cols.append(pl.lit(part).alias("part"))
+    if serial is not None:
+        cols.append(pl.lit(serial).alias("serial"))
+    cols += [
+        "seam",
+        pl.col("current").round(1).alias("current_a"),
+        pl.col("voltage").round(2).alias("voltage_v"),
+        (pl.col("wire_feed") * 60).round(3).alias("wfs_m_min"),
+    ]
+    if travel:
+        cols.append((pl.col("travel_speed") * 1e3).round(2).alias("travel_mm_s"))
+    return df.select(cols)

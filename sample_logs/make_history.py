@@ -24,14 +24,13 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
-import polars as pl
 
 ROOT = Path(__file__).resolve().parent
 sys.path.insert(0, str(ROOT.parent))
 
 from monitor.cli import run_scan  # noqa: E402
 from monitor.config import load_config  # noqa: E402
-from monitor.simulate import SeamPlan, simulate_log  # noqa: E402
+from monitor.simulate import SeamPlan, export_frame, simulate_log  # noqa: E402
 
 PARTS_A_NIGHT = 40
 RATE_HZ = 50.0  # enough for seam means; keeps the simulation quick
@@ -59,17 +58,7 @@ def simulate_night(cfg, night: int, start: datetime, out: Path, rng: np.random.G
             plans.append(SeamPlan(seam, ctwd, spec.wire_feed, spec.voltage + rng.normal(0, 0.15),
                                   spec.travel_speed, dur))
         df = simulate_log(plans, w.melt_a, w.melt_b, w.diameter, w.density, RATE_HZ, rng)
-        ts = pl.lit(t_start) + pl.duration(microseconds=(pl.col("t") * 1e6).round(0).cast(pl.Int64))
-        df = df.select(
-            ts.dt.cast_time_unit("ms").alias("time"),
-            pl.lit("TB7-tow-bracket").alias("part"),
-            pl.lit(serial).alias("serial"),
-            "seam",
-            pl.col("current").round(1).alias("current_a"),
-            pl.col("voltage").round(2).alias("voltage_v"),
-            (pl.col("wire_feed") * 60).round(3).alias("wfs_m_min"),
-            (pl.col("travel_speed") * 1e3).round(2).alias("travel_mm_s"),
-        )
+        df = export_frame(df, t_start, part="TB7-tow-bracket", serial=serial)
         df.write_parquet(out / f"cell3_{serial}.parquet")
         t_start += timedelta(seconds=float(df.height / RATE_HZ) + 95.0)
 

@@ -27,7 +27,7 @@ ROOT = Path(__file__).resolve().parent
 sys.path.insert(0, str(ROOT.parent))
 
 from monitor.config import load_config  # noqa: E402
-from monitor.simulate import SeamPlan, simulate_log  # noqa: E402
+from monitor.simulate import SeamPlan, export_frame, simulate_log  # noqa: E402
 
 NIGHT = datetime(2026, 11, 30, 22, 0, tzinfo=UTC)
 
@@ -54,16 +54,7 @@ def cell3(cfg, out: Path, rng: np.random.Generator) -> None:
                 ctwd += 4.0e-3  # fixture clamp out of place
             plans.append(SeamPlan(seam, ctwd, spec.wire_feed, spec.voltage + rng.normal(0, 0.15), spec.travel_speed, dur))
         df = simulate_log(plans, w.melt_a, w.melt_b, w.diameter, w.density, rate, rng)
-        df = _with_time(df, t_start).select(
-            "time",
-            pl.lit("TB7-tow-bracket").alias("part"),
-            pl.lit(serial).alias("serial"),
-            "seam",
-            pl.col("current").round(1).alias("current_a"),
-            pl.col("voltage").round(2).alias("voltage_v"),
-            (pl.col("wire_feed") * 60).round(3).alias("wfs_m_min"),
-            (pl.col("travel_speed") * 1e3).round(2).alias("travel_mm_s"),
-        )
+        df = export_frame(df, t_start, part="TB7-tow-bracket", serial=serial)
         df.write_parquet(out / f"cell3_{serial}.parquet", compression="zstd", compression_level=9)
         t_start += timedelta(seconds=float(df.height / rate) + 95.0)
 
