@@ -1,7 +1,7 @@
 """Bad input: every kind of broken export gets its decided outcome and a plain one-line reason,
 while the good files of the same run are processed and their results kept.
 
-The outcomes are decisions of this project (see docs/sections/i7.md); the physical ranges behind
+The outcomes are decisions of this project (see README, "Reliability"); the physical ranges behind
 the units checks are common practice for GMAW, no source.
 """
 
