@@ -233,6 +233,29 @@ def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_
     return TuneResult(table, rec, n, target_parts, note, limits, _recommend_limits(limits))
 
 
+def _plot_limits(ax, result: TuneResult) -> None:
+    """Mean warning against CTWD band, one line a penetration margin; refused points hollow."""
+    lim = result.limits
+    for margin in lim.get_column("margin_mm").unique().sort().to_list():
+        d = lim.filter(pl.col("margin_mm") == margin).sort("band_mm")
+        lead = d.get_column("lead_parts").fill_null(0).fill_nan(0).to_numpy()
+        band = d.get_column("band_mm").to_numpy()
+        meets = d.get_column("meets_target").to_numpy()
+        line, = ax.plot(band, lead, marker="", lw=1, label=f"margin {margin:g} mm")
+        ax.scatter(band[meets], lead[meets], color=line.get_color())
+        ax.scatter(band[~meets], lead[~meets], facecolors="none", edgecolors=line.get_color())
+    rl = result.recommended_limits
+    if rl is not None:
+        r = lim.filter((pl.col("band_mm") == round(rl.ctwd_band * 1e3, 6))
+                       & (pl.col("margin_mm") == round(rl.penetration_margin * 1e3, 6))).row(0, named=True)
+        ax.scatter([r["band_mm"]], [r["lead_parts"] or 0], s=160, facecolors="none", edgecolors="tab:red",
+                   linewidths=2, label="recommended")
+    ax.set_xlabel("CTWD band [mm] (hollow: over the false-watch target)")
+    ax.set_ylabel("mean warning before the alarm [parts]")
+    ax.set_title("CTWD band and penetration margin")
+    ax.legend(loc="best", fontsize=8)
+
+
 def plot_tradeoff(result: TuneResult, path: Path, title: str) -> None:
     """Scatter of in-control ARL against mean detection lead, recommended setting marked (PNG)."""
     import matplotlib
@@ -241,7 +264,12 @@ def plot_tradeoff(result: TuneResult, path: Path, title: str) -> None:
     import matplotlib.pyplot as plt
 
     t = result.table
-    fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
+    lim = result.limits
+    if lim is not None and lim.height:
+        fig, (ax, ax2) = plt.subplots(1, 2, figsize=(12, 4.5), dpi=110)
+        _plot_limits(ax2, result)
+    else:
+        fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
     lead = t.get_column("lead_parts").fill_null(0).fill_nan(0).to_numpy()
     arl = t.get_column("arl0_combined").to_numpy()
     meets = t.get_column("meets_target").to_numpy()
