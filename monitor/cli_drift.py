@@ -124,13 +124,14 @@ def limits_cmd(config_dir: Path, part: str, as_json: bool) -> None:
               help="Target in-control ARL: parts per false watch, per seam position.")
 @click.option("--plot", "plot_path", type=click.Path(path_type=Path, dir_okay=False), default=None,
               help="PNG of the trade-off [default: tune-<part>.png in the history folder].")
-@click.option("--write", is_flag=True, help="Write the recommended settings into the part's [drift] table (backup kept).")
+@click.option("--write", is_flag=True, help="Write the recommended settings into the part's [drift] table and its "
+              "top-level ctwd_band and penetration_margin (backup kept).")
 def tune_cmd(config_dir: Path, part: str, history_dir: Path | None, target_parts: float, plot_path: Path | None,
              write: bool) -> None:
     """Backtest drift-chart settings on a part's history and recommend some for a false-watch target."""
     from monitor.config import safe_name
     from monitor.history import read_history
-    from monitor.tune import HistoryTooShort, plot_tradeoff, tune_part, write_drift_table
+    from monitor.tune import HistoryTooShort, plot_tradeoff, tune_part, write_drift_table, write_limits
 
     cfg = _config(config_dir)
     _need_part(cfg, part, config_dir)
@@ -154,19 +155,51 @@ def tune_cmd(config_dir: Path, part: str, history_dir: Path | None, target_parts
                    f"{r['caught']:>3}/{r['episodes']:<3} {lead:>6}{mark}")
     click.echo(f"(* meets the target of one false watch per {target_parts:.0f} parts per seam; ARL0 of both charts "
                f"together; lead = parts of warning before the first alarm of a tip)")
+    lim = res.limits
+    if lim is not None and lim.height:
+        click.echo(f"\nCTWD band and penetration margin (now: band {p.defaults.ctwd_band * 1e3:g} mm, "
+                   f"margin {p.defaults.penetration_margin * 1e3:g} mm)")
+        click.echo(f"{'band':>5} {'margin':>7} {'watches':>8} {'unconf.':>8} {'false/500':>10} {'caught':>7} {'lead':>6}")
+        for r in lim.iter_rows(named=True):
+            lead = "—" if r["lead_parts"] is None or r["lead_parts"] != r["lead_parts"] else f"{r['lead_parts']:.1f}"
+            mark = " *" if r["meets_target"] else ""
+            click.echo(f"{r['band_mm']:>5g} {r['margin_mm']:>7g} {r['watches']:>8} {r['unconfirmed']:>8} "
+                       f"{500 * r['false_per_part']:>10.2f} {r['caught']:>3}/{r['episodes']:<3} {lead:>6}{mark}")
+        click.echo(f"(band, margin in mm; false/500 = unconfirmed watches per 500 parts on the worst seam position; "
+                   f"* within one false watch per {target_parts:.0f} parts)")
     plot_path = plot_path or root / f"tune-{safe_name(part)}.png"
     plot_tradeoff(res, plot_path, f"{part}: drift-chart settings")
     click.echo(f"plot: {plot_path}")
-    if res.recommended is None:
-        click.echo("no candidate meets the target; keep the present settings or lower --target-parts")
-        return
     r = res.recommended
-    click.echo(f"recommended: cusum_k = {r.cusum_k:g}, cusum_h = {r.cusum_h:g}, ewma_lambda = {r.ewma_lambda:g}, "
-               f"ewma_l = {r.ewma_l:g}")
-    if write:
+    if r is None:
+        click.echo("no chart setting meets the target; keep the present settings or lower --target-parts")
+    else:
+        click.echo(f"recommended: cusum_k = {r.cusum_k:g}, cusum_h = {r.cusum_h:g}, ewma_lambda = {r.ewma_lambda:g}, "
+                   f"ewma_l = {r.ewma_l:g}")
+    rl = res.recommended_limits
+    if rl is None:
+        click.echo("no band and margin meet the target; keep the present ones or lower --target-parts")
+    else:
+        click.echo(f'recommended: ctwd_band = "{rl.ctwd_band * 1e3:g} mm", '
+                   f'penetration_margin = "{rl.penetration_margin * 1e3:g} mm"')
+        overrides = [s.name for s in p.seams.values()
+                     if s.ctwd_band != p.defaults.ctwd_band or s.penetration_margin != p.defaults.penetration_margin]
+        if overrides:
+            click.echo(f"note: seam(s) {', '.join(overrides)} set their own band or margin; --write leaves those")
+    if write and (r is not None or rl is not None):
+        original = p.path.read_bytes()
         try:
-            backup = write_drift_table(p.path, r, cfg.wires)
+            backup = None
+            if r is not None:
+                backup = write_drift_table(p.path, r, cfg.wires)
+                click.echo(f"written: [drift] in {p.path}")
+            if rl is not None:
+                backup = write_limits(p.path, rl, cfg.wires)
+                click.echo(f"written: ctwd_band, penetration_margin in {p.path}")
         except (ConfigError, OSError) as exc:
             click.echo(f"ctwd: {p.path}: not written ({exc})", err=True)
             sys.exit(EXIT_USAGE)
-        click.echo(f"written: [drift] in {p.path} (previous file kept as {backup})")
+        finally:
+            if p.path.read_bytes() != original:
+                p.path.with_name(p.path.name + ".bak").write_bytes(original)
+        click.echo(f"(previous file kept as {backup})")

@@ -81,6 +81,7 @@ class SeamSpec:
     ctwd_band: float = 0.003  # allowed |CTWD - nominal| before a watch [m]
     wire_feed_tolerance: float = 0.05  # relative window around programmed WFS
     voltage_tolerance: float = 0.05  # relative window around programmed voltage
+    penetration_margin: float = 0.0  # watch when penetration < minimum + this margin [m]
 
 
 @dataclass(frozen=True)
@@ -358,7 +359,7 @@ def load_wires(path: Path) -> dict[str, Wire]:
 # parts/*.toml
 
 _SEAM_KEYS = {"nominal_ctwd", "min_penetration", "travel_speed", "wire_feed", "voltage", "ctwd_band",
-              "wire_feed_tolerance", "voltage_tolerance"}
+              "wire_feed_tolerance", "voltage_tolerance", "penetration_margin"}
 
 
 def _seam_spec(t: _Table, name: str, base: SeamSpec | None) -> SeamSpec:
@@ -373,11 +374,15 @@ def _seam_spec(t: _Table, name: str, base: SeamSpec | None) -> SeamSpec:
         ctwd_band=t.quantity("ctwd_band", "length", b.ctwd_band if b else 0.003),
         wire_feed_tolerance=t.fraction("wire_feed_tolerance", b.wire_feed_tolerance if b else 0.05),
         voltage_tolerance=t.fraction("voltage_tolerance", b.voltage_tolerance if b else 0.05),
+        penetration_margin=t.quantity("penetration_margin", "length", b.penetration_margin if b else 0.0,
+                                      positive=False),
     )
     if not 2e-3 <= spec.nominal_ctwd <= 60e-3:
         raise t.fail("nominal_ctwd", f"{spec.nominal_ctwd * 1e3:g} mm is outside 2-60 mm; units?")
     if not spec.min_penetration < 50e-3:
         raise t.fail("min_penetration", f"{spec.min_penetration * 1e3:g} mm is implausible; units?")
+    if not 0.0 <= spec.penetration_margin < 5e-3:
+        raise t.fail("penetration_margin", f"{spec.penetration_margin * 1e3:g} mm must be 0 to 5 mm; units?")
     return spec
 
 

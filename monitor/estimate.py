@@ -22,7 +22,7 @@ PARAM_COLUMNS = (
     "known_part", "a", "b", "var_a", "var_b", "cov_ab", "diameter", "density", "nominal_ctwd",
     "min_penetration", "ctwd_band", "cfg_travel_speed", "prog_wire_feed", "prog_voltage",
     "wire_feed_tol", "voltage_tol", "ref_current", "ref_voltage", "ref_travel_speed", "ref_depth",
-    "ref_depth_se", "exp_i", "exp_v", "exp_s",
+    "ref_depth_se", "exp_i", "exp_v", "exp_s", "penetration_margin",
 )
 
 
@@ -40,7 +40,7 @@ def _params(part: Part | None, seam: str, cfg: Config) -> tuple:
         s.wire_feed if s.wire_feed is not None else nan,
         s.voltage if s.voltage is not None else nan,
         s.wire_feed_tolerance, s.voltage_tolerance,
-        r.current, r.voltage, r.travel_speed, r.depth, r.depth_se, *r.exponents,
+        r.current, r.voltage, r.travel_speed, r.depth, r.depth_se, *r.exponents, s.penetration_margin,
     )
 
 

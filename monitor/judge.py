@@ -74,6 +74,10 @@ def _judge_row(r: dict, arc: ArcSettings) -> tuple[str, str]:
     elif p_lo < pmin:
         status = "watch"
         notes.append(f"penetration {_mm(p, 2)}, 95 % low bound {_mm(p_lo, 2)} < {_mm(pmin, 2)}")
+    margin = r.get("penetration_margin") or 0.0
+    if pmin <= p < pmin + margin:
+        status = "watch" if status == "ok" else status
+        notes.append(f"penetration {_mm(p, 2)} within {_mm(margin, 2)} margin of {_mm(pmin, 2)}")
     if abs(dev) > band:
         status = "watch" if status == "ok" else status
         notes.append(f"outside ±{_mm(band)} band")
@@ -99,7 +103,8 @@ def judge(est: pl.DataFrame, arc: ArcSettings) -> pl.DataFrame:
       timestamps broken, a logging gap, no travel speed, means outside physical ranges, or a
       back-solved CTWD outside 2-60 mm;
     - ``alarm``: estimated penetration < the seam's minimum;
-    - ``watch``: the 95 % low bound of penetration < minimum, or |CTWD − nominal| > the band,
+    - ``watch``: the 95 % low bound of penetration < minimum, or penetration < minimum + the
+      part's ``penetration_margin`` (default 0), or |CTWD − nominal| > the band,
       or WFS or voltage outside the programmed window (when given);
     - ``ok`` otherwise.
     """

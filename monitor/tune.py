@@ -18,6 +18,14 @@ positively correlated). The recommendation is the setting with combined ARL ≥ 
 false watch per ``target_parts`` parts per seam by default 500) that caught most drift episodes,
 then earliest, then with fewest unconfirmed watches.
 
+The part's CTWD band and penetration margin are backtested the same way (:func:`backtest_limits`):
+for every pairing of :data:`BAND_GRID_MM` and :data:`MARGIN_GRID_MM` a watch is raised on a valid
+seam when |CTWD − nominal| > band or minimum ≤ penetration < minimum + margin, and the same counts
+are taken, tip runs included. Their false-watch rate is empirical only: unconfirmed watches per
+valid part, on the worst seam position. The recommended pair has that rate ≤ 1/``target_parts``
+and caught most episodes, then earliest, then had fewest unconfirmed watches, then the widest
+band and smallest margin.
+
 A history is too short when any seam position has fewer than ``baseline_parts`` +
 :data:`MIN_BACKTEST_PARTS` valid parts.
 """
@@ -37,9 +45,11 @@ import polars as pl
 from monitor import spc
 from monitor.config import DriftSettings, Part, load_part
 from monitor.drift import drift_frame
+from monitor.toml_edit import toml_value
 
-__all__ = ["MIN_BACKTEST_PARTS", "CUSUM_GRID", "EWMA_GRID", "HistoryTooShort", "TuneResult", "backtest",
-           "history_length", "tune_part", "write_drift_table", "plot_tradeoff"]
+__all__ = ["MIN_BACKTEST_PARTS", "CUSUM_GRID", "EWMA_GRID", "BAND_GRID_MM", "MARGIN_GRID_MM", "HistoryTooShort",
+           "LimitSettings", "TuneResult", "backtest", "backtest_limits", "history_length", "tune_part",
+           "write_drift_table", "write_limits", "plot_tradeoff"]
 
 #: Parts beyond the baseline window a backtest needs, per seam position.
 MIN_BACKTEST_PARTS = 50
@@ -47,10 +57,22 @@ MIN_BACKTEST_PARTS = 50
 CUSUM_GRID = ((0.5, 4.0), (0.5, 5.0), (0.5, 6.0), (0.75, 3.5), (0.75, 4.5), (1.0, 3.0), (1.0, 4.0))
 #: Candidate (λ, L) of the EWMA chart.
 EWMA_GRID = ((0.05, 2.615), (0.10, 2.814), (0.10, 3.0), (0.20, 2.962), (0.20, 3.2))
+#: Candidate CTWD bands [mm]: watch when |CTWD − nominal| > band.
+BAND_GRID_MM = (1.5, 2.0, 2.5, 3.0, 4.0)
+#: Candidate penetration margins [mm]: watch when minimum ≤ penetration < minimum + margin.
+MARGIN_GRID_MM = (0.0, 0.05, 0.1, 0.2)
 
 
 class HistoryTooShort(ValueError):
     """The history cannot support a backtest; the message says how much more is needed."""
+
+
+@dataclass(frozen=True)
+class LimitSettings:
+    """Part-level watch limits, SI: CTWD band [m] and penetration margin [m]."""
+
+    ctwd_band: float
+    penetration_margin: float
 
 
 @dataclass(frozen=True)
@@ -60,6 +82,8 @@ class TuneResult:
     parts_per_seam: int
     target_parts: float
     note: str
+    limits: pl.DataFrame | None = None  # one row a (band, margin) candidate
+    recommended_limits: LimitSettings | None = None
 
 
 @lru_cache(maxsize=256)
@@ -139,8 +163,48 @@ def backtest(hist: pl.DataFrame, base: DriftSettings, grid_cusum=None, grid_ewma
     return pl.DataFrame(rows)
 
 
+def backtest_limits(hist: pl.DataFrame, base: DriftSettings, bands_mm=None, margins_mm=None,
+                    target_parts: float = 500.0) -> pl.DataFrame:
+    """One row per (CTWD band [mm], penetration margin [mm]) candidate with its backtest counts on ``hist``.
+
+    ``hist`` needs ``ctwd_mm``, ``ctwd_nominal_mm``, ``penetration_mm``, ``min_penetration_mm``,
+    ``status``, ``seam`` and what :func:`monitor.drift.drift_frame` needs (tip runs come from it;
+    the chart settings ``base`` do not change them). ``false_per_part``: unconfirmed watches per
+    valid part on the worst seam position; ``meets_target``: that rate ≤ 1/``target_parts``.
+    """
+    bands_mm = BAND_GRID_MM if bands_mm is None else bands_mm
+    margins_mm = MARGIN_GRID_MM if margins_mm is None else margins_mm
+    judged = drift_frame(hist, lambda _p: base)
+    valid = pl.col("status") != "invalid"
+    dev = (pl.col("ctwd_mm") - pl.col("ctwd_nominal_mm")).abs()
+    pen, pmin = pl.col("penetration_mm"), pl.col("min_penetration_mm")
+    seams = judged.get_column("seam").unique().sort().to_list()
+    rows = []
+    for band in bands_mm:
+        for margin in margins_mm:
+            sig = (valid & ((dev > band) | ((pen >= pmin) & (pen < pmin + margin)))).fill_null(False)
+            j = judged.with_columns(sig.alias("drift_signal"))
+            per_seam = [_score(j.filter(pl.col("seam") == s)) for s in seams]
+            tot = _score(j)
+            worst = max((d["unconfirmed_per_500"] for d in per_seam if d["unconfirmed_per_500"] == d["unconfirmed_per_500"]),
+                        default=float("nan")) / 500.0
+            rows.append({"band_mm": float(band), "margin_mm": float(margin), **tot, "false_per_part": worst,
+                         "meets_target": bool(worst <= 1.0 / target_parts)})
+    return pl.DataFrame(rows)
+
+
+def _recommend_limits(limits: pl.DataFrame) -> LimitSettings | None:
+    ok = limits.filter(pl.col("meets_target")).sort(
+        ["caught", "lead_parts", "unconfirmed", "band_mm", "margin_mm"],
+        descending=[True, True, False, True, False], nulls_last=True)
+    if not ok.height:
+        return None
+    r = ok.row(0, named=True)
+    return LimitSettings(ctwd_band=r["band_mm"] * 1e-3, penetration_margin=r["margin_mm"] * 1e-3)
+
+
 def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_cusum=None,
-              grid_ewma=None) -> TuneResult:
+              grid_ewma=None, bands_mm=None, margins_mm=None) -> TuneResult:
     """Backtest a part's history and recommend settings; raises HistoryTooShort with the shortfall."""
     base = part.drift
     need = base.baseline_parts + MIN_BACKTEST_PARTS
@@ -165,7 +229,31 @@ def tune_part(hist: pl.DataFrame, part: Part, target_parts: float = 500.0, grid_
     note = (f"{n} valid parts on the shortest seam position over {days} day(s). ARLs are from Monte Carlo on the "
             f"charts; the history has {'enough' if n >= target_parts else 'too few'} parts to confirm a rate of one "
             f"false watch per {target_parts:.0f} parts by itself.")
-    return TuneResult(table, rec, n, target_parts, note)
+    limits = backtest_limits(hist, base, bands_mm, margins_mm, target_parts)
+    return TuneResult(table, rec, n, target_parts, note, limits, _recommend_limits(limits))
+
+
+def _plot_limits(ax, result: TuneResult) -> None:
+    """Mean warning against CTWD band, one line a penetration margin; refused points hollow."""
+    lim = result.limits
+    for margin in lim.get_column("margin_mm").unique().sort().to_list():
+        d = lim.filter(pl.col("margin_mm") == margin).sort("band_mm")
+        lead = d.get_column("lead_parts").fill_null(0).fill_nan(0).to_numpy()
+        band = d.get_column("band_mm").to_numpy()
+        meets = d.get_column("meets_target").to_numpy()
+        line, = ax.plot(band, lead, marker="", lw=1, label=f"margin {margin:g} mm")
+        ax.scatter(band[meets], lead[meets], color=line.get_color())
+        ax.scatter(band[~meets], lead[~meets], facecolors="none", edgecolors=line.get_color())
+    rl = result.recommended_limits
+    if rl is not None:
+        r = lim.filter((pl.col("band_mm") == round(rl.ctwd_band * 1e3, 6))
+                       & (pl.col("margin_mm") == round(rl.penetration_margin * 1e3, 6))).row(0, named=True)
+        ax.scatter([r["band_mm"]], [r["lead_parts"] or 0], s=160, facecolors="none", edgecolors="tab:red",
+                   linewidths=2, label="recommended")
+    ax.set_xlabel("CTWD band [mm] (hollow: over the false-watch target)")
+    ax.set_ylabel("mean warning before the alarm [parts]")
+    ax.set_title("CTWD band and penetration margin")
+    ax.legend(loc="best", fontsize=8)
 
 
 def plot_tradeoff(result: TuneResult, path: Path, title: str) -> None:
@@ -176,7 +264,12 @@ def plot_tradeoff(result: TuneResult, path: Path, title: str) -> None:
     import matplotlib.pyplot as plt
 
     t = result.table
-    fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
+    lim = result.limits
+    if lim is not None and lim.height:
+        fig, (ax, ax2) = plt.subplots(1, 2, figsize=(12, 4.5), dpi=110)
+        _plot_limits(ax2, result)
+    else:
+        fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
     lead = t.get_column("lead_parts").fill_null(0).fill_nan(0).to_numpy()
     arl = t.get_column("arl0_combined").to_numpy()
     meets = t.get_column("meets_target").to_numpy()
@@ -238,6 +331,53 @@ def write_drift_table(part_path: Path, settings: DriftSettings, wires: dict) -> 
         missing = "".join(f"{k} = {_fmt(v)}\n" for k, v in values.items() if k not in seen)
         lines.insert(start + 1, missing) if missing else None
         new = "".join(lines)
+    backup = part_path.with_name(part_path.name + ".bak")
+    tmp = part_path.with_name(f".{part_path.name}.tune.tmp")
+    tmp.write_text(new, encoding="utf-8")
+    try:
+        load_part(tmp, wires)  # raises ConfigError if the edit broke anything
+        shutil.copy2(part_path, backup)
+        tmp.replace(part_path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return backup
+
+
+_TOP_KEY = re.compile(r"^(\s*)([A-Za-z_]+)(\s*=\s*)(\"[^\"\n]*\"|'[^'\n]*'|[^#\n]*?)(\s*#.*)?(\r?\n)?$")
+
+
+def write_limits(part_path: Path, limits: LimitSettings, wires: dict) -> Path:
+    """Set the top-level ``ctwd_band`` and ``penetration_margin`` of a part file by a textual edit.
+
+    Only those two ``key = value`` lines before the first table header change (trailing comments
+    kept); a missing key is added after the last top-level key line. ``[[seam]]`` entries that
+    override either key are left alone. The old file is kept as ``<name>.toml.bak``; the new one is
+    parsed before it replaces the old, and on any problem the old one stays. Returns the backup's path.
+    """
+    text = part_path.read_text(encoding="utf-8")
+    nl = "\r\n" if "\r\n" in text else "\n"
+    lines = text.splitlines(keepends=True)
+    values = {"ctwd_band": toml_value(f"{limits.ctwd_band * 1e3:g} mm"),
+              "penetration_margin": toml_value(f"{limits.penetration_margin * 1e3:g} mm")}
+    end = next((j for j, ln in enumerate(lines) if _ANY_HEADER.match(ln)), len(lines))
+    seen: set[str] = set()
+    last_key = -1
+    for j in range(end):
+        m = _TOP_KEY.match(lines[j])
+        if not m or lines[j].lstrip().startswith("#"):
+            continue
+        last_key = j
+        key = m.group(2)
+        if key in values:
+            seen.add(key)
+            lines[j] = f"{m.group(1)}{key}{m.group(3)}{values[key]}{m.group(5) or ''}{m.group(6) or ''}"
+    missing = [f"{k} = {v}{nl}" for k, v in values.items() if k not in seen]
+    if missing:
+        if last_key >= 0 and not lines[last_key].endswith("\n"):
+            lines[last_key] += nl
+        lines[last_key + 1:last_key + 1] = missing
+    new = "".join(lines)
     backup = part_path.with_name(part_path.name + ".bak")
     tmp = part_path.with_name(f".{part_path.name}.tune.tmp")
     tmp.write_text(new, encoding="utf-8")

@@ -113,4 +113,136 @@ def test_cli_tune_write_and_refusal(tmp_path, monkeypatch):
     assert (tmp_path / "t.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (cfg / "parts" / "tb7-tow-bracket.toml.bak").read_text() == before
     assert load_config(cfg).parts[PART].drift.cusum_h == 6.0
-    assert part_file.read_text().startswith(before.rstrip("\n"))
+    after = part_file.read_text()
+    assert 'ctwd_band = "' in after and "# watch when |CTWD - nominal| exceeds this" in after  # comment kept
+    assert "recommended: ctwd_band = " in res.output and "CTWD band and penetration margin" in res.output
+
+    def strip(t):  # the file apart from the two limit lines the write may set
+        return [ln for ln in t.splitlines() if not ln.startswith(("ctwd_band", "penetration_margin"))]
+    assert strip(after)[:len(strip(before))] == strip(before)
+
+
+# ---------------------------------------------------------------------------------------------
+# CTWD band and penetration margin
+
+SIGMA_MM = 0.6  # CTWD scatter of the synthetic history [mm]
+
+
+def limits_history(n_tips: int = 6, parts_a_tip: int = 50, wear_every: int = 2, seed: int = 3) -> pl.DataFrame:
+    """Like :func:`history_frame` with a wider scatter (σ = 0.6 mm); every ``wear_every``-th tip wears
+    0.25 mm a part after 25 parts (0: none wears). Penetration falls 0.08 mm per mm of CTWD over nominal, and a seam
+    is in alarm exactly when its penetration is below the 2.5 mm minimum (CTWD 5 mm over)."""
+    rng = np.random.default_rng(seed)
+    t0 = datetime(2026, 10, 1, 22, tzinfo=UTC)
+    n = n_tips * parts_a_tip
+    j = np.repeat(np.arange(n), 3)
+    tip, k = j // parts_a_tip, j % parts_a_tip
+    wears = (tip % wear_every == 0) if wear_every else np.zeros(j.size, bool)
+    wear = np.where(wears, 0.25 * np.maximum(0, k - 25), 0.0)
+    dev = wear + rng.normal(0, SIGMA_MM, j.size)
+    pen = 2.9 - 0.08 * dev
+    seam = np.tile(["S1", "S2", "S3"], n)
+    starts = [t0 + timedelta(days=int(x) // 60, minutes=3 * (int(x) % 60), seconds=10 * (i % 3)) for i, x in enumerate(j)]
+    return pl.DataFrame({
+        "source": [f"log{x:05d}.parquet" for x in j], "part": PART, "serial": [f"TB7-{x:05d}" for x in j],
+        "seam": seam, "start": starts, "arc_time_s": 7.0,
+        "status": np.where(pen < 2.5, "alarm", "ok"), "reason": "",
+        "ctwd_mm": 15.0 + dev, "ctwd_nominal_mm": 15.0, "penetration_mm": pen, "min_penetration_mm": 2.5,
+    }).with_columns(pl.col("start").dt.cast_time_unit("us"))
+
+
+def _row(t: pl.DataFrame, lim) -> dict:
+    return t.filter((pl.col("band_mm") == round(lim.ctwd_band * 1e3, 6))
+                    & (pl.col("margin_mm") == round(lim.penetration_margin * 1e3, 6))).row(0, named=True)
+
+
+def test_recommended_band_catches_the_episodes_within_the_false_watch_target():
+    from scipy.stats import norm
+
+    part = load_config(REPO / "config").parts[PART]
+    res = tune.tune_part(limits_history(), part, target_parts=500, grid_cusum=SMALL_CUSUM[1:], grid_ewma=SMALL_EWMA[1:])
+    lim, rec = res.limits, res.recommended_limits
+    assert lim.height == len(tune.BAND_GRID_MM) * len(tune.MARGIN_GRID_MM)
+    assert rec is not None
+    row = _row(lim, rec)
+    # tips 0, 2, 4 wear into alarms: three episodes on each of three seam positions, all caught early
+    assert row["episodes"] == 9 and row["caught"] == 9 and row["lead_parts"] > 5
+    assert row["false_per_part"] <= 1 / 500 and row["meets_target"]
+    best = lim.filter(pl.col("meets_target")).sort(["caught", "lead_parts"], descending=True).row(0, named=True)
+    assert (row["caught"], row["lead_parts"]) == (best["caught"], best["lead_parts"])
+    # a normal scatter leaves the band on 2·Φ(−band/σ) of in-control parts (scipy.stats.norm):
+    # 1.5 mm = 2.5 σ gives about 1.2 % (six per 500 parts), far over the target, and must be refused
+    assert 2 * norm.sf(1.5 / SIGMA_MM) > 5 / 500
+    assert not lim.filter(pl.col("band_mm") == 1.5).get_column("meets_target").any()
+    assert 2 * norm.sf(rec.ctwd_band * 1e3 / SIGMA_MM) <= 1 / 500
+    # the margin rule fires once penetration nears the minimum, so a wider margin never warns later
+    for band in tune.BAND_GRID_MM:
+        leads = lim.filter(pl.col("band_mm") == band).sort("margin_mm").get_column("lead_parts").to_list()
+        assert all(b >= a - 1e-9 for a, b in zip(leads, leads[1:]))
+
+
+def test_recommended_limits_stay_within_target_on_in_control_data():
+    part = load_config(REPO / "config").parts[PART]
+    res = tune.tune_part(limits_history(), part, target_parts=500, grid_cusum=SMALL_CUSUM[1:], grid_ewma=SMALL_EWMA[1:])
+    rec = res.recommended_limits
+    fresh = limits_history(n_tips=6, wear_every=0, seed=99)  # no tip wears: every watch is false
+    t = tune.backtest_limits(fresh, part.drift, [rec.ctwd_band * 1e3], [rec.penetration_margin * 1e3])
+    r = t.row(0, named=True)
+    assert r["episodes"] == 0 and r["false_per_part"] <= 1 / 500
+
+
+def test_write_limits_round_trips_through_the_loader(tmp_path):
+    cfg = tmp_path / "config"
+    shutil.copytree(REPO / "config", cfg)
+    f = cfg / "parts" / "tb7-tow-bracket.toml"
+    before = f.read_text()
+    backup = tune.write_limits(f, tune.LimitSettings(2.5e-3, 0.1e-3), load_config(cfg).wires)
+    assert backup.read_text() == before
+    after = f.read_text()
+    assert 'ctwd_band = "2.5 mm"            # watch when |CTWD - nominal| exceeds this' in after
+    part = load_config(cfg).parts[PART]
+    assert part.defaults.ctwd_band == pytest.approx(2.5e-3) and part.defaults.penetration_margin == pytest.approx(1e-4)
+    assert part.seam("S2").penetration_margin == pytest.approx(1e-4)  # defaults reach every seam
+    # the added key sits with the top-level keys, before the first table; nothing else changed
+    assert after.index("penetration_margin") < after.index("[penetration_reference]")
+    assert [ln for ln in after.splitlines() if not ln.startswith(("ctwd_band", "penetration_margin"))] == \
+        [ln for ln in before.splitlines() if not ln.startswith("ctwd_band")]
+    tune.write_limits(f, tune.LimitSettings(3e-3, 0.2e-3), load_config(cfg).wires)  # second write replaces
+    assert f.read_text().count("penetration_margin") == 1
+    assert load_config(cfg).parts[PART].defaults.penetration_margin == pytest.approx(2e-4)
+
+
+def test_bad_penetration_margin_is_one_line_error(tmp_path):
+    from monitor.config import ConfigError
+
+    cfg = tmp_path / "config"
+    shutil.copytree(REPO / "config", cfg)
+    f = cfg / "parts" / "tb7-tow-bracket.toml"
+    for bad in ('"0.1 V"', '"-0.1 mm"', '"2 m"'):
+        f.write_text((REPO / "config" / "parts" / "tb7-tow-bracket.toml").read_text().replace(
+            'min_penetration = "2.5 mm"', f'min_penetration = "2.5 mm"\npenetration_margin = {bad}'))
+        with pytest.raises(ConfigError) as exc:
+            load_config(cfg)
+        assert "penetration_margin" in str(exc.value) and "\n" not in str(exc.value)
+
+
+def test_judge_margin_rule():
+    from ingest.schema import ArcSettings
+    from monitor.judge import judge
+
+    def one(pen_mm: float, margin_mm: float) -> tuple[str, str]:
+        row = {"known_part": True, "part": PART, "n_samples": 1000, "used_time_s": 6.0, "arc_time_s": 7.0,
+               "min_step_s": 0.005, "current_bad": 0, "voltage_bad": 0, "wire_feed_bad": 0, "max_gap_s": 0.005,
+               "travel_speed": 8e-3, "current_mean": 200.0, "voltage_mean": 24.0, "wire_feed_mean": 9 / 60,
+               "ctwd": 15e-3, "ctwd_sigma": 0.2e-3, "nominal_ctwd": 15e-3, "ctwd_band": 3e-3,
+               "penetration": pen_mm * 1e-3, "penetration_sigma": 0.0, "min_penetration": 2.5e-3,
+               "prog_wire_feed": 9 / 60, "wire_feed_tol": 0.05, "prog_voltage": 24.0, "voltage_tol": 0.05,
+               "penetration_margin": margin_mm * 1e-3}
+        r = judge(pl.DataFrame([row]), ArcSettings()).row(0, named=True)
+        return r["status"], r["reason"]
+
+    assert one(2.58, 0.1) == ("watch", "CTWD 15.0 mm, +0.0 mm over nominal; "
+                                       "penetration 2.58 mm within 0.10 mm margin of 2.50 mm")
+    assert one(2.58, 0.0)[0] == "ok"  # no margin: the old rule
+    assert one(2.61, 0.1)[0] == "ok"  # clear of the margin
+    assert one(2.45, 0.1) == ("alarm", "CTWD 15.0 mm, +0.0 mm over nominal; penetration 2.45 mm < 2.50 mm")
