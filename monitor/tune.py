@@ -331,6 +331,11 @@ def write_drift_table(part_path: Path, settings: DriftSettings, wires: dict) -> 
         missing = "".join(f"{k} = {_fmt(v)}\n" for k, v in values.items() if k not in seen)
         lines.insert(start + 1, missing) if missing else None
         new = "".join(lines)
+    return _replace_checked(part_path, new, wires)
+
+
+def _replace_checked(part_path: Path, new: str, wires: dict) -> Path:
+    """Replace a part file by ``new`` only if it still loads; keep the old one as ``.bak``."""
     backup = part_path.with_name(part_path.name + ".bak")
     tmp = part_path.with_name(f".{part_path.name}.tune.tmp")
     tmp.write_text(new, encoding="utf-8")
@@ -378,14 +383,4 @@ def write_limits(part_path: Path, limits: LimitSettings, wires: dict) -> Path:
             lines[last_key] += nl
         lines[last_key + 1:last_key + 1] = missing
     new = "".join(lines)
-    backup = part_path.with_name(part_path.name + ".bak")
-    tmp = part_path.with_name(f".{part_path.name}.tune.tmp")
-    tmp.write_text(new, encoding="utf-8")
-    try:
-        load_part(tmp, wires)  # raises ConfigError if the edit broke anything
-        shutil.copy2(part_path, backup)
-        tmp.replace(part_path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-    return backup
+    return _replace_checked(part_path, new, wires)
