@@ -110,7 +110,8 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
     extra = {}
     if page:
         files_df = files_frame(result.files).cast(pl.String)
-        extra["summary.html"] = render_page(seams, files_df, run, out / "summary.html", cfg=cfg)
+        extra["summary.html"] = render_page(seams, files_df, run, out / "summary.html", cfg=cfg,
+                                            files_beside=True)
     write_outputs(out, seams, result.files, run, extra=extra)
     return run
 

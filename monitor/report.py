@@ -357,8 +357,11 @@ def _fmt(v: Any, spec: str = ".2f") -> str:
 
 def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: Path, *, cfg: Any = None,
                 history: Path | None = None, max_traces: int = MAX_TRACES, traces: bool = True,
-                charts: bool = True) -> str:
+                charts: bool = True, files_beside: bool | None = None) -> str:
     """Render summary.html from the published seam table and files table; returns the HTML.
+
+    ``files_beside``: whether files.csv sits next to the page (None: look; a scan passes True, as it
+    publishes files.csv together with the page).
 
     ``cfg`` (a :class:`monitor.config.Config`) lets the page re-read flagged seams' traces; when
     None the config folder named in ``run["config_dir"]`` is tried. ``history`` is a folder of
@@ -438,9 +441,9 @@ def render_page(seams: pl.DataFrame, files: pl.DataFrame, run: dict, out_path: P
         if has else []
     )
     out_dir = Path(out_path).parent
-    files_link = "files.csv"
-    if not (out_dir / "files.csv").exists():
-        files_link = None
+    if files_beside is None:
+        files_beside = (out_dir / "files.csv").exists()
+    files_link = "files.csv" if files_beside else None
     night = None
     if has and seams.get_column("start").null_count() < seams.height:
         a, b = seams.get_column("start").min(), seams.get_column("start").max()

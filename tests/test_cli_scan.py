@@ -130,3 +130,12 @@ def test_part_from_file_name(scanned):
     cell5 = seams.filter(pl.col("source").str.contains("cell5"))
     assert set(cell5["part"].unique()) == {"SR40-seat-rail"}
     assert set(cell5["seam"].unique()) == {"S1", "S2"}
+
+
+def test_page_links_files_csv_beside_it(tmp_path, repo_root):
+    # files.csv is published together with the page, so a first scan's page links to it
+    out = tmp_path / "first"
+    r = CliRunner().invoke(main, ["scan", str(repo_root / "sample_logs" / "cell5"), "--config",
+                                  str(repo_root / "config"), "--out", str(out), "--no-history", "-q"])
+    assert r.exit_code == 0, r.output
+    assert '<a href="files.csv">files.csv</a>' in (out / "summary.html").read_text()
