@@ -11,6 +11,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import polars as pl
 import pytest
 
@@ -96,7 +97,11 @@ def test_good_files_kept_and_unchanged_by_bad_neighbours(corpus_run, cfg, tmp_pa
     from monitor.store import to_output
 
     b = to_output(alone).with_columns(pl.col("source").str.split("/").list.last().alias("name")).sort("name", "seam")
-    assert a.equals(b.select("seam", "status", "current_mean_a", "ctwd_mm"))
+    b = b.select("seam", "status", "current_mean_a", "ctwd_mm")
+    assert a.select("seam", "status").equals(b.select("seam", "status"))
+    # floats to 1e-12 relative: polars' threaded sums are not bit-reproducible between runs
+    for c in ("current_mean_a", "ctwd_mm"):
+        np.testing.assert_allclose(a[c].to_numpy(), b[c].to_numpy(), rtol=1e-12, atol=0, err_msg=c)
 
 
 def test_folder_link_loop_does_not_trap_the_walk(corpus_run):
