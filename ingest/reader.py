@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -10,7 +11,7 @@ import polars as pl
 from ingest.schema import ExportSpec
 
 __all__ = ["IngestError", "Samples", "scan_samples", "SUFFIXES", "file_format", "probe_file", "HARD_LIMITS",
-           "MAX_FILE_BYTES", "diagnose_csv", "polars_reason"]
+           "MAX_FILE_BYTES", "diagnose_csv", "polars_reason", "BatchPlan", "CHECK_COMBINE"]
 
 #: One export larger than this is skipped without being read (a night of one cell at 1 kHz is ~1 GB of CSV).
 MAX_FILE_BYTES = 4 * 2**30
@@ -45,6 +46,8 @@ class Samples:
     #: ``<ch>_max`` (SI, over plausible readings), ``dup_t``, ``tz_offsets``, ``seam_labels`` (labelled
     #: files: every "serial\u241fseam" key)
     quality: pl.LazyFrame | None = None
+    #: the same reading, batch by batch (see :class:`BatchPlan`)
+    plan: BatchPlan | None = None
 
 
 def file_format(path: Path) -> str | None:
@@ -203,11 +206,14 @@ def _schema(lf: pl.LazyFrame) -> pl.Schema:
 
 
 def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
-    """(t seconds since first sample, absolute UTC timestamp or null)."""
+    """(absolute time as float64 seconds or int64 microseconds, UTC timestamp or null) of one row.
+
+    The first is ``_abs``: float seconds as logged for a numeric time column, else microseconds
+    since the epoch (Int64) of the UTC timestamp. ``t`` is ``_abs`` minus the file's first value.
+    """
     col = pl.col(name)
     if dtype.is_numeric():
-        t = col.cast(pl.Float64)
-        return (t - t.first()).alias("t"), pl.lit(None, dtype=pl.Datetime("us", "UTC")).alias("ts")
+        return col.cast(pl.Float64), pl.lit(None, dtype=pl.Datetime("us", "UTC"))
     if isinstance(dtype, pl.Datetime):
         ts = col.dt.replace_time_zone("UTC") if dtype.time_zone is None else col.dt.convert_time_zone("UTC")
     elif dtype == pl.String:
@@ -215,8 +221,40 @@ def _time_expr(name: str, dtype: pl.DataType) -> tuple[pl.Expr, pl.Expr]:
     else:
         raise IngestError(f'time column "{name}" has type {dtype}; expected seconds or ISO-8601 timestamps')
     ts = ts.cast(pl.Datetime("us", "UTC"))
-    t = (ts - ts.first()).dt.total_microseconds().cast(pl.Float64) / 1e6
-    return t.alias("t"), ts.alias("ts")
+    return ts.dt.epoch("us"), ts
+
+
+def _t_from(abs_t: pl.Expr, numeric: bool, origin: pl.Expr) -> pl.Expr:
+    """Seconds since ``origin`` (the file's first ``_abs`` value) from the ``_abs`` expression."""
+    if numeric:
+        return (abs_t - origin).alias("t")
+    return ((abs_t - origin).cast(pl.Float64) / 1e6).alias("t")
+
+
+@dataclass(frozen=True)
+class BatchPlan:
+    """How to turn batches of an export's rows into canonical samples and file-level checks.
+
+    Used by :func:`ingest.onepass.aggregate_file`, which streams ``source`` (the export's own
+    columns, lazily, in file order) in batches: ``origin`` (one value) is evaluated on the first
+    batch, ``canonical(origin)`` gives the numeric canonical columns of every batch (``t``, ``ts``,
+    channels, ``tip_change`` when mapped), ``text`` the label columns, ``checks`` one row of
+    per-batch counts (combined by :data:`CHECK_COMBINE`; ``seam_labels`` is left to the caller).
+    """
+
+    source: pl.LazyFrame
+    origin: pl.Expr
+    canonical: Callable[[object], list[pl.Expr]]
+    #: the text columns the export has, among "seam", "part", "serial" (cast to String)
+    text: dict[str, pl.Expr]
+    checks: tuple[pl.Expr, ...]
+    time_column: str
+
+
+#: How per-batch check values combine into the file's: "sum", "max", or "union" (lists of strings).
+CHECK_COMBINE = {"rows": "sum", "dup_t": "sum", "tz_offsets": "union", "seam_labels": "union",
+                 **{f"{c}_{k}": ("max" if k == "max" else "sum") for c in ("current", "voltage", "wire_feed")
+                    for k in ("nulls", "absurd", "max")}}
 
 
 def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Samples:
@@ -266,7 +304,8 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
     need(spec.time, "time")
     for what, ch in (("current", spec.current), ("voltage", spec.voltage), ("wire feed", spec.wire_feed)):
         need(ch.column, what)
-    t, ts = _time_expr(spec.time, schema[spec.time])
+    abs_t, ts = _time_expr(spec.time, schema[spec.time])
+    numeric_time = schema[spec.time].is_numeric()
 
     def raw(ch, alias: str) -> pl.Expr:
         dt = schema[ch.column]
@@ -300,18 +339,18 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
             x = pl.when(x.is_between(*lim) | x.is_null()).then(x).otherwise(None)
         return x.alias(alias)
 
-    exprs = [t, ts, chan(spec.current, "current"), chan(spec.voltage, "voltage"), chan(spec.wire_feed, "wire_feed")]
+    exprs = [ts.alias("ts"), chan(spec.current, "current"), chan(spec.voltage, "voltage"), chan(spec.wire_feed, "wire_feed")]
     if spec.travel_speed is not None and spec.travel_speed.column in schema:
         exprs.append(chan(spec.travel_speed, "travel_speed"))
         has_travel = True
     else:
         has_travel = False
         exprs.append(pl.lit(None, dtype=pl.Float64).alias("travel_speed"))
+    text: dict[str, pl.Expr] = {}
     for opt, alias in ((spec.seam, "seam"), (spec.part, "part"), (spec.serial, "serial")):
         if opt is not None and opt in schema:
-            exprs.append(pl.col(opt).cast(pl.String).alias(alias))
-        else:
-            exprs.append(pl.lit(None, dtype=pl.String).alias(alias))
+            text[alias] = pl.col(opt).cast(pl.String).alias(alias)
+    strings = [text.get(a, pl.lit(None, dtype=pl.String).alias(a)) for a in ("seam", "part", "serial")]
     if spec.tip_change is not None and spec.tip_change in schema:
         col = pl.col(spec.tip_change)
         marker = (col.cast(pl.String).str.to_lowercase().is_in(["1", "true", "yes", "y", "x"])
@@ -334,17 +373,29 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         # few distinct endings only, not on every row
         ends = pl.col(spec.time).str.slice(-6).unique()
         offsets = ends.str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1).drop_nulls().unique().sort()
-        checks.append(offsets.str.join(", ").alias("tz_offsets"))
     else:
-        checks.append(pl.lit(None, dtype=pl.String).alias("tz_offsets"))
+        offsets = pl.lit(None, dtype=pl.String).drop_nulls()
     if present["seam"]:
         # every (serial, seam) label of the file, keyed as ingest.seams keys labelled seams
         serial = pl.col(spec.serial).cast(pl.String).fill_null("") if present["serial"] else pl.lit("")
         key = serial + "\u241f" + pl.col(spec.seam).cast(pl.String)
-        checks.append(key.drop_nulls().unique().implode().alias("seam_labels"))
-    # The seam aggregates and the checks read the same columns: one parse, shared through a
-    # cache node when both are collected together (pl.collect_all), instead of two parses.
-    lf = lf.cache()
-    return Samples(frame=lf.select(exprs), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
+        labels = [key.drop_nulls().unique().implode().alias("seam_labels")]
+    else:
+        labels = []
+    used = [spec.time, spec.current.column, spec.voltage.column, spec.wire_feed.column,
+            *(c for c in (spec.seam, spec.part, spec.serial, spec.tip_change) if c is not None and c in schema)]
+    if has_travel:
+        used.append(spec.travel_speed.column)
+    source = lf.select(list(dict.fromkeys(used)))
+
+    def canonical(origin) -> list[pl.Expr]:
+        return [_t_from(abs_t, numeric_time, pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)), *exprs]
+
+    plan = BatchPlan(source=source, origin=abs_t.first(), canonical=canonical, text=text,
+                     checks=(*checks, offsets.implode().alias("tz_offsets")), time_column=spec.time)
+    # Whole-file lazy forms (traces, the window fallback, tests): t from the first value.
+    whole = [_t_from(abs_t, numeric_time, abs_t.first()), *exprs[:5], *strings, *exprs[5:]]
+    quality = lf.select(*checks, offsets.str.join(", ").alias("tz_offsets"), *labels)
+    return Samples(frame=lf.select(whole), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
                    has_serial=present["serial"], has_travel_speed=has_travel, notes=tuple(notes),
-                   quality=lf.select(checks))
+                   quality=quality, plan=plan)

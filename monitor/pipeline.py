@@ -14,8 +14,8 @@ from pathlib import Path
 import polars as pl
 
 from ingest.discover import discover
-from ingest.reader import IngestError, diagnose_csv, file_format, polars_reason, probe_file, scan_samples
-from ingest.seams import run_aggregates, seam_aggregates
+from ingest.onepass import FilePass, aggregate_file
+from ingest.reader import IngestError, diagnose_csv, file_format, polars_reason, probe_file
 from monitor.config import Config, safe_name
 from monitor.estimate import estimate
 from monitor.judge import judge
@@ -105,19 +105,9 @@ def _quality_notes(q: dict, spec, rows: int) -> tuple[str | None, list[str]]:
     return None, notes
 
 
-def _collect(path: Path, cfg: Config, encoding: str = "utf8"):
-    """One lazy pass: seam aggregates, the file-level checks and (labelled files) the seam labels."""
-    samples = scan_samples(path, cfg.cell.export, encoding=encoding)
-    agg_lf = run_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam)
-    jobs = [agg_lf, samples.quality if samples.quality is not None else samples.frame.select(pl.len().alias("rows"))]
-    got = pl.collect_all(jobs)
-    agg = got[0]
-    if agg.height and int(agg["runs"].max()) > 1:
-        # a seam label recurs after another seam's samples: the window form spans the whole seam
-        agg = seam_aggregates(samples.frame, cfg.cell.arc, labelled=samples.has_seam).collect()
-    else:
-        agg = agg.drop("runs")
-    return [agg, got[1]], samples
+def _collect(path: Path, cfg: Config, encoding: str = "utf8") -> FilePass:
+    """One streaming pass over the file: seam aggregates and the file-level checks together."""
+    return aggregate_file(path, cfg.cell.export, cfg.cell.arc, encoding=encoding)
 
 
 def _stat_key(path: Path) -> tuple[int, int]:
@@ -161,13 +151,13 @@ def scan_file(
     spec = cfg.cell.export
     try:
         try:
-            got, samples = _collect(path, cfg)
+            got = _collect(path, cfg)
         except (pl.exceptions.ComputeError, IngestError) as exc:
             if fmt != "csv" or "utf-8" not in str(exc).lower():
                 raise
             # Repair: a latin-1 serial or comment must not cost the night's data.
-            got, samples = _collect(path, cfg, encoding="utf8-lossy")
-        agg, quality = got[0], got[1].row(0, named=True)
+            got = _collect(path, cfg, encoding="utf8-lossy")
+        agg, quality, samples = got.aggregates, got.quality, got.samples
         rows = int(quality["rows"])
     except IngestError as exc:
         return skip(str(exc), size, digest)

@@ -1,0 +1,325 @@
+"""One streaming pass over an export: per-seam aggregates and the file-level checks together.
+
+The file is read once, in batches of rows in file order (polars' streaming reader, so memory is
+bounded by the batch size and the longest seam, not by the file's length). Each batch becomes
+canonical samples; arc-on samples form *runs* (a labelled seam's samples, or an arc-on stretch of
+an unlabelled export), which are contiguous in a well-formed export. The last run of a batch may
+continue in the next one, so its rows are carried over; every other run is complete and is
+reduced to one row right away:
+
+1. its first and last time (one group-by on the run number, which is sorted, so polars groups
+   by slices), broadcast back by position (a gather, no join);
+2. the trim window as a mask, every channel masked by its own validity;
+3. one group-by on the run number for all sums, counts and extremes.
+
+Every mean of a run is computed over that run's rows in one contiguous slice, in file order,
+whatever the number of threads or worker processes: two scans of the same file give the same
+bits (tested).
+
+A labelled seam whose label recurs later in the file (a re-strike after another seam) has more
+than one run; such a file is recomputed with :func:`ingest.seams.seam_aggregates`, whose trim
+window spans the whole seam.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+
+from ingest.reader import CHECK_COMBINE, IngestError, Samples, scan_samples
+from ingest.schema import ArcSettings
+from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
+
+__all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS"]
+
+#: Rows per batch. About 100 MB of canonical columns; large enough that per-batch overhead is
+#: negligible, small enough that a file of any length scans in bounded memory.
+CHUNK_ROWS = 1_000_000
+
+_KEY = "\u241f"
+
+
+@dataclass(frozen=True)
+class FilePass:
+    """What one pass over a file gives."""
+
+    aggregates: pl.DataFrame  # one row a seam, columns of ingest.seams.AGGREGATE_COLUMNS (+ tip_change)
+    quality: dict  # file-level checks, keys of ingest.reader.CHECK_COMBINE
+    samples: Samples
+
+
+def _valid(col: str) -> pl.Expr:
+    c = pl.col(col)
+    return c.is_not_null() & c.is_finite() & (c > 0)
+
+
+def _arc_state(arc: ArcSettings, last: bool) -> pl.Expr:
+    """Arc on where current > threshold; a null/NaN current carries the previous state (from the
+    previous batch at the start of this one)."""
+    cur = pl.col("current")
+    return (pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
+            .forward_fill().fill_null(last).alias("_arc"))
+
+
+def _changed(col: str, before: str | None, first_batch: bool) -> pl.Expr:
+    """True where text column ``col`` differs from the row before; the first row is compared with
+    ``before`` (the previous batch's last value), or starts a change in the first batch."""
+    c = pl.col(col)
+    out = c.ne_missing(c.shift(1, fill_value=pl.lit(before, dtype=pl.String)))
+    return out | (pl.int_range(pl.len()) == 0) if first_batch else out
+
+
+class _Text:
+    """Where each value of one text column starts along the file (small: one row a change)."""
+
+    def __init__(self) -> None:
+        self.pos: list[pl.Series] = []
+        self.val: list[pl.Series] = []
+
+    def add(self, pos: pl.Series, val: pl.Series) -> None:
+        self.pos.append(pos)
+        self.val.append(val)
+
+    def first_non_null(self, p0: np.ndarray, p1: np.ndarray) -> pl.Series:
+        """Per run [p0, p1] (global row positions): the first non-null value that starts inside
+        it, or the value running at p0."""
+        if not self.pos:
+            return pl.Series([None] * len(p0), dtype=pl.String)
+        starts = pl.concat(self.pos).to_numpy()
+        vals = pl.concat(self.val)
+        n = len(starts)
+        idx = np.where(vals.is_not_null().to_numpy(), np.arange(n), n)
+        nxt = np.minimum.accumulate(idx[::-1])[::-1]  # next non-null stretch at or after j
+        j = np.searchsorted(starts, p0, side="right") - 1
+        k = nxt[np.clip(j, 0, n - 1)]
+        hit = (j >= 0) & (k < n) & (starts[np.minimum(k, n - 1)] <= p1)
+        got = vals.gather(pl.Series(np.minimum(k, n - 1)))
+        return pl.select(pl.when(pl.Series(hit)).then(got)).to_series()
+
+
+def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
+    """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
+    t = pl.col("t")
+    df = df.with_columns((pl.col("_key") != pl.col("_key").shift(1)).fill_null(True).cum_sum().alias("_rid") - 1)
+    df = df.with_columns(pl.col("_rid").set_sorted())
+    bounds = df.group_by("_rid", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"))
+    rid = df.get_column("_rid")
+    kk = ((t >= bounds.get_column("start_s").gather(rid) + arc.trim_start)
+          & (t <= bounds.get_column("_t1").gather(rid) - arc.trim_end))
+    df = df.with_columns(kk.alias("_keep"))
+    kk = pl.col("_keep")
+    sid = pl.col("_rid")
+    tk = pl.when(kk).then(t)
+    prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
+    step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
+
+    def ok(col: str) -> pl.Expr:
+        return kk & _valid(col)
+
+    cur, volt = pl.col("current"), pl.col("voltage")
+    df = df.select(
+        "_rid", "_key", "_pos", "ts", *(["tip_change"] if has_marker else []),
+        tk.alias("_tk"), step.alias("_step"),
+        pl.when(ok("current")).then(cur).alias("_i"),
+        pl.when(ok("voltage")).then(volt).alias("_v"),
+        pl.when(ok("current") & ok("voltage")).then(cur * volt).alias("_p"),
+        pl.when(ok("wire_feed")).then(pl.col("wire_feed")).alias("_w"),
+        pl.when(ok("travel_speed")).then(pl.col("travel_speed")).alias("_s"),
+    )
+    i, tk = pl.col("_i"), pl.col("_tk")
+    n_kept = tk.count()  # kept samples; a kept reading that is not valid is a bad one
+    out = df.group_by("_rid", maintain_order=True).agg(
+        pl.col("_key").first(),
+        pl.col("_pos").first().alias("_p0"),
+        pl.col("_pos").last().alias("_p1"),
+        pl.col("ts").min().alias("start"),
+        tk.min().alias("_tk_min"),
+        tk.max().alias("_tk_max"),
+        n_kept.alias("n_samples"),
+        pl.len().alias("_n_all"),
+        i.mean().alias("current_mean"),
+        (i * i).mean().alias("current_sq_mean"),
+        pl.col("_v").mean().alias("voltage_mean"),
+        pl.col("_p").mean().alias("power_mean"),
+        pl.col("_w").mean().alias("wire_feed_mean"),
+        pl.col("_s").mean().alias("travel_speed_mean"),
+        (n_kept - i.count()).alias("current_bad"),
+        (n_kept - pl.col("_v").count()).alias("voltage_bad"),
+        (n_kept - pl.col("_w").count()).alias("wire_feed_bad"),
+        pl.col("_step").max().alias("max_gap_s"),
+        pl.col("_step").min().alias("min_step_s"),
+        *([pl.col("tip_change").any()] if has_marker else []),
+    )
+    return pl.concat([bounds.drop("_rid"), out.drop("_rid")], how="horizontal")
+
+
+def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None, arc: ArcSettings,
+            labelled: bool, has_marker: bool) -> pl.DataFrame:
+    extra = ["tip_change"] if has_marker else []
+    agg = pl.concat(parts, how="vertical_relaxed")
+    p0, p1 = agg.get_column("_p0").to_numpy(), agg.get_column("_p1").to_numpy()
+    cols = {"part": text["part"].first_non_null(p0, p1) if "part" in text else None}
+    if labelled:
+        agg = agg.join(labels, on="_key", how="left", maintain_order="left")
+    else:
+        cols["serial"] = text["serial"].first_non_null(p0, p1) if "serial" in text else None
+    agg = agg.with_columns(
+        *(pl.Series(k, v, dtype=pl.String) if v is not None else pl.lit(None, dtype=pl.String).alias(k)
+          for k, v in cols.items()),
+        (pl.col("_t1") - pl.col("start_s")).alias("arc_time_s"),
+        (pl.col("_tk_max") - pl.col("_tk_min")).alias("used_time_s"),
+        (pl.col("_n_all") - pl.col("n_samples")).alias("n_trimmed"),
+    )
+    if labelled:
+        agg = agg.with_columns((pl.col("serial").fill_null("") + _KEY + pl.col("seam")).alias("seam_key"))
+    else:
+        agg = agg.with_columns(pl.col("_key").cast(pl.String).alias("seam_key"))
+        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration)
+    agg = agg.sort("start_s", maintain_order=True)
+    if not labelled:
+        number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))
+        agg = agg.with_columns(("S" + number.cast(pl.String)).alias("seam"))
+    return agg.select(*AGGREGATE_COLUMNS, *extra)
+
+
+def _combine(acc: dict, got: dict) -> None:
+    for name, value in got.items():
+        how = CHECK_COMBINE[name]
+        if name not in acc:
+            acc[name] = set(value or ()) if how == "union" else value
+        elif how == "sum":
+            acc[name] += value or 0
+        elif how == "max":
+            if value is not None and (acc[name] is None or value > acc[name]):
+                acc[name] = value
+        else:
+            acc[name].update(value or ())
+
+
+def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUNK_ROWS) -> FilePass:
+    """Per-seam aggregates and file-level checks of ``samples`` in one streaming pass.
+
+    Parameters
+    ----------
+    samples : Samples
+        From :func:`ingest.reader.scan_samples`; its ``plan`` is streamed.
+    arc : ArcSettings
+        Arc-on threshold [A], trims [s], minimum duration of an unlabelled seam [s].
+    chunk_rows : int
+        Rows per batch (memory, not results, depends on it).
+
+    Returns
+    -------
+    FilePass
+        ``aggregates`` has the columns and meaning documented in
+        :func:`ingest.seams.seam_aggregates`; ``quality`` the checks listed on
+        :class:`ingest.reader.Samples` (``tz_offsets`` a ", "-joined string, ``seam_labels`` a
+        sorted list).
+    """
+    plan = samples.plan
+    if plan is None:
+        raise ValueError("samples have no batch plan")
+    labelled = samples.has_seam
+    has_marker = "tip_change" in samples.frame.collect_schema().names()
+    names = list(plan.text)
+    text = {k: _Text() for k in names}
+    label_rows: list[pl.DataFrame] = []
+    parts: list[pl.DataFrame] = []
+    quality: dict = {}
+    carry: pl.DataFrame | None = None
+    last_arc = False
+    last_text: dict[str, str | None] = {}
+    canonical = None
+    prev_time = None
+    offset = 0  # rows before this batch
+    key_base = 0  # run keys used so far
+    time_col = plan.time_column
+    for raw in plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True):
+        n = raw.height
+        if n == 0:
+            continue
+        if canonical is None:
+            canonical = plan.canonical(raw.select(plan.origin).item())
+        got = raw.select(*plan.checks).row(0, named=True)
+        first_time = raw.get_column(time_col)[0]
+        if prev_time is not None and first_time is not None and first_time == prev_time:
+            got["dup_t"] = (got.get("dup_t") or 0) + 1
+        prev_time = raw.get_column(time_col)[-1]
+        _combine(quality, got)
+        marks = [_changed(k, last_text.get(k), offset == 0).alias(f"_c_{k}") for k in names]
+        txt = raw.select(*plan.text.values())
+        chg = txt.select(marks) if names else None
+        pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
+        b = raw.select(*canonical, pos).with_columns(_arc_state(arc, last_arc))
+        for k in names:
+            m = chg.get_column(f"_c_{k}")
+            text[k].add(b.get_column("_pos").filter(m), txt.get_column(k).filter(m))
+            last_text[k] = txt.get_column(k)[-1]
+        if labelled:
+            new = chg.get_column("_c_seam")
+            if "serial" in names:
+                new = new | chg.get_column("_c_serial")
+            keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+            in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
+            label_rows.append(pl.DataFrame([keys.filter(new), txt.get_column("seam").filter(new),
+                                            (txt.get_column("serial").filter(new) if "serial" in names
+                                             else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
+        else:
+            arc_on = b.get_column("_arc")
+            first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
+            new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
+            keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+            in_run = arc_on
+        key_base = int(keys[-1]) + 1
+        last_arc = bool(b.get_column("_arc")[-1])
+        b = b.with_columns(keys).filter(in_run).drop("_arc")
+        if carry is not None and carry.height:
+            b = pl.concat([carry, b], how="vertical_relaxed")
+        offset += n
+        if b.height == 0:
+            carry = None
+            continue
+        last = b.get_column("_key")[-1]
+        split = b.get_column("_key").search_sorted(last, side="left")
+        carry = b.slice(split)
+        if split:
+            parts.append(_reduce_runs(b.slice(0, split), arc, has_marker))
+    if carry is not None and carry.height:
+        parts.append(_reduce_runs(carry, arc, has_marker))
+    if not quality:
+        quality = {name: (0 if how == "sum" else None) for name, how in CHECK_COMBINE.items()}
+    quality["tz_offsets"] = ", ".join(sorted(quality.get("tz_offsets") or ()))
+    labels = pl.concat(label_rows) if label_rows else None
+    if labelled:
+        keyed = labels.filter(pl.col("seam").is_not_null()) if labels is not None else pl.DataFrame()
+        quality["seam_labels"] = sorted(set((keyed.get_column("serial").fill_null("") + _KEY + keyed.get_column("seam"))
+                                            .to_list())) if keyed.height else []
+    if parts:
+        agg = _finish(parts, text, labels, arc, labelled, has_marker)
+    else:
+        agg = pl.DataFrame()
+    if labelled and agg.height and agg.get_column("seam_key").is_duplicated().any():
+        # a label recurs after another seam's samples: the window form spans the whole seam
+        agg = seam_aggregates(samples.frame, arc, labelled=True).collect()
+    if agg.height == 0:
+        agg = pl.DataFrame(schema=seam_aggregates(samples.frame, arc, labelled).collect_schema())
+    return FilePass(aggregates=agg, quality=quality, samples=samples)
+
+
+def aggregate_file(path: Path, spec, arc: ArcSettings, encoding: str = "utf8",
+                   chunk_rows: int = CHUNK_ROWS) -> FilePass:
+    """:func:`aggregate_samples` of one export file (see :func:`ingest.reader.scan_samples`).
+
+    Raises
+    ------
+    IngestError
+        The file is not a readable export (the one-line reason); polars' own errors for
+        malformed content found while streaming (the caller diagnoses those).
+    """
+    samples = scan_samples(Path(path), spec, encoding=encoding)
+    if samples.plan is None:
+        raise IngestError("no batch plan")
+    return aggregate_samples(samples, arc, chunk_rows=chunk_rows)
