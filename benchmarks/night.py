@@ -21,7 +21,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 from monitor.config import load_config  # noqa: E402
 from monitor.simulate import SeamPlan, simulate_seam  # noqa: E402
 
-__all__ = ["make_night", "write_night"]
+__all__ = ["make_night", "write_night", "split_night"]
 
 START = datetime(2026, 11, 30, 22, 0, tzinfo=UTC)
 PART = "TB7-tow-bracket"
@@ -88,6 +88,20 @@ def write_night(out: Path, n_seams: int, seam_s: float = 10.0, rate: float = 100
     return paths
 
 
+def split_night(parquet: Path, n_files: int) -> Path:
+    """The night as ``n_files`` Parquet files (serials dealt round-robin) in ``split<n>/`` beside it."""
+    d = parquet.parent / f"split{n_files}"
+    if d.is_dir() and len(list(d.glob("*.parquet"))) == n_files:
+        return d
+    d.mkdir(exist_ok=True)
+    df = pl.read_parquet(parquet)
+    serials = df["serial"].unique(maintain_order=True).to_list()
+    for j in range(n_files):
+        chunk = serials[j::n_files]
+        df.filter(pl.col("serial").is_in(chunk)).write_parquet(d / f"cell_TB7_{j:02d}.parquet", compression="zstd")
+    return d
+
+
 if __name__ == "__main__":
     import argparse
 
@@ -96,5 +110,13 @@ if __name__ == "__main__":
     ap.add_argument("--seams", type=int, default=2000)
     ap.add_argument("--seam-s", type=float, default=10.0)
     ap.add_argument("--rate", type=float, default=1000.0)
+    ap.add_argument("--split", type=int, default=0, help="also write the night as this many files (by serial)")
     a = ap.parse_args()
-    print(write_night(a.out, a.seams, a.seam_s, a.rate))
+    import json
+
+    paths = write_night(a.out, a.seams, a.seam_s, a.rate)
+    info = {k: str(v) for k, v in paths.items()}
+    info["rows"] = pl.scan_parquet(paths["parquet"]).select(pl.len()).collect().item()
+    if a.split:
+        info["split"] = str(split_night(paths["parquet"], a.split))
+    print(json.dumps(info))

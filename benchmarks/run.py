@@ -78,18 +78,10 @@ def _dir_with(path: Path, name: str) -> Path:
     return d
 
 
-def _split(parquet: Path, n_files: int) -> Path:
-    import polars as pl
+def _version(pkg: str) -> str:
+    from importlib.metadata import version
 
-    d = parquet.parent / f"split{n_files}"
-    if d.is_dir() and len(list(d.glob("*.parquet"))) == n_files:
-        return d
-    d.mkdir(exist_ok=True)
-    df = pl.read_parquet(parquet)
-    serials = df["serial"].unique(maintain_order=True)
-    for j, chunk in enumerate(serials.to_list()[i::n_files] for i in range(n_files)):
-        df.filter(pl.col("serial").is_in(chunk)).write_parquet(d / f"cell_TB7_{j:02d}.parquet", compression="zstd")
-    return d
+    return version(pkg)
 
 
 def main() -> None:
@@ -107,12 +99,15 @@ def main() -> None:
     seam_s = 4.0 if a.small else a.seam_s
     reps = a.reps or (1 if a.small else 3)
 
-    from night import write_night
-
-    paths = write_night(a.work, seams, seam_s, a.rate)
-    pq, csv = paths["parquet"], paths["csv"]
+    # The inputs are made in a child process: on Linux a child's peak RSS (ru_maxrss) starts from
+    # its parent's at fork, so this process must stay small for the peaks below to mean anything.
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     py = sys.executable
+    made = subprocess.run([py, str(ROOT / "benchmarks" / "night.py"), str(a.work), "--seams", str(seams),
+                           "--seam-s", str(seam_s), "--rate", str(a.rate), *(["--split", "8"] if a.dask else [])],
+                          env=env, cwd=ROOT, check=True, capture_output=True, text=True)
+    info = json.loads(made.stdout.strip().splitlines()[-1])
+    pq, csv, rows = Path(info["parquet"]), Path(info["csv"]), int(info["rows"])
     out = a.work / "out"
     cli = [py, "-m", "monitor.cli", "scan", "--config", str(ROOT / "config"), "-q", "--no-history"]
     steps = {
@@ -124,7 +119,7 @@ def main() -> None:
         "ctwd scan CSV --no-page": [*cli, "--out", str(out / "c"), "--no-page", str(_dir_with(csv, "csv"))],
     }
     if a.dask:
-        split = _split(pq, 8)
+        split = Path(info["split"])
         steps["8 files, dask local:1"] = [*cli, "--out", str(out / "d1"), "--no-page", "--cluster", "local:1", str(split)]
         steps["8 files, dask local:2"] = [*cli, "--out", str(out / "d2"), "--no-page", "--cluster", "local:2", str(split)]
         steps["8 files, --jobs 1"] = [*cli, "--out", str(out / "j1"), "--no-page", str(split)]
@@ -137,12 +132,9 @@ def main() -> None:
     shutil.rmtree(out, ignore_errors=True)
 
     med = {k: {m: statistics.median(r[m] for r in v) for m in ("wall_s", "cpu_s", "peak_mb")} for k, v in results.items()}
-    import polars as pl
-
-    rows = pl.scan_parquet(pq).select(pl.len()).collect().item()
     print(f"\n{seams} seams x {seam_s:g} s at {a.rate:g} Hz = {rows:,} rows; Parquet {pq.stat().st_size / 2**20:.0f} MiB, "
           f"CSV {csv.stat().st_size / 2**20:.0f} MiB; {reps} interleaved repetitions, medians; "
-          f"{os.cpu_count()} CPUs, Python {platform.python_version()}, polars {pl.__version__}\n")
+          f"{os.cpu_count()} CPUs, Python {platform.python_version()}, polars {_version('polars')}\n")
     floor = med["floor (polars, Parquet)"]
     print(f"| {'step':<26} | wall s | CPU s | peak MiB | wall / floor | peak / floor |")
     print(f"|{'-' * 28}|-------:|------:|---------:|-------------:|-------------:|")

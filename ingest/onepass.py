@@ -23,13 +23,16 @@ window spans the whole seam.
 
 from __future__ import annotations
 
+import queue
+import threading
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import polars as pl
 
-from ingest.reader import CHECK_COMBINE, IngestError, Samples, scan_samples
+from ingest.reader import CHECK_COMBINE, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
 from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
 
@@ -199,7 +202,80 @@ def _combine(acc: dict, got: dict) -> None:
             acc[name].update(value or ())
 
 
-def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUNK_ROWS) -> FilePass:
+def _batches(samples: Samples, chunk_rows: int) -> Iterator[pl.DataFrame]:
+    """The export's rows in file order, a bounded number at a time.
+
+    Parquet: windows of whole row groups (at least ``chunk_rows`` rows each, or one row group),
+    each read by polars' multi-threaded reader when asked for, so memory does not grow with the
+    file whatever the consumer's speed. CSV: polars' streaming reader in chunks of ``chunk_rows``
+    (parsing text is slower than the aggregation that consumes it, so little is buffered).
+    """
+    plan = samples.plan
+    path = samples.path
+    if path is not None and file_format(path) == "parquet":
+        import pyarrow.parquet as pq
+
+        meta = pq.ParquetFile(path).metadata
+        sizes = [meta.row_group(i).num_rows for i in range(meta.num_row_groups)]
+        off = 0
+        while off < sum(sizes):
+            n, acc = 0, 0
+            for i, rows in enumerate(sizes):
+                acc += rows
+                if acc > off:
+                    n = acc - off
+                    rest = sizes[i + 1:]
+                    while n < chunk_rows and rest:
+                        n += rest.pop(0)
+                    break
+            yield plan.source.slice(off, n).collect()
+            off += n
+        return
+    yield from plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True)
+
+
+def _prefetch(batches: Iterator[pl.DataFrame], depth: int = 1) -> Iterator[pl.DataFrame]:
+    """Read the next batch in a background thread while this one is aggregated (at most ``depth``
+    batches wait); an error while reading is raised here, in order."""
+    q: queue.Queue = queue.Queue(maxsize=depth)
+    done = object()
+    stop = threading.Event()
+
+    def work() -> None:
+        try:
+            for b in batches:
+                while not stop.is_set():
+                    try:
+                        q.put(b, timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    return
+            q.put(done)
+        except BaseException as exc:  # handed to the consumer, raised there
+            q.put(exc)
+
+    th = threading.Thread(target=work, name="ctwd-read", daemon=True)
+    th.start()
+    try:
+        while True:
+            item = q.get()
+            if item is done:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        while th.is_alive():
+            try:
+                q.get_nowait()
+            except queue.Empty:
+                th.join(0.05)
+
+
+def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None = None) -> FilePass:
     """Per-seam aggregates and file-level checks of ``samples`` in one streaming pass.
 
     Parameters
@@ -208,8 +284,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUN
         From :func:`ingest.reader.scan_samples`; its ``plan`` is streamed.
     arc : ArcSettings
         Arc-on threshold [A], trims [s], minimum duration of an unlabelled seam [s].
-    chunk_rows : int
-        Rows per batch (memory, not results, depends on it).
+    chunk_rows : int, optional
+        Rows per batch, default :data:`CHUNK_ROWS` (memory, not the seams found, depends on it).
 
     Returns
     -------
@@ -222,6 +298,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUN
     plan = samples.plan
     if plan is None:
         raise ValueError("samples have no batch plan")
+    chunk_rows = chunk_rows or CHUNK_ROWS
     labelled = samples.has_seam
     has_marker = "tip_change" in samples.frame.collect_schema().names()
     names = list(plan.text)
@@ -237,7 +314,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUN
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
     time_col = plan.time_column
-    for raw in plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True):
+    for raw in _prefetch(_batches(samples, chunk_rows)):
         n = raw.height
         if n == 0:
             continue
@@ -310,7 +387,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int = CHUN
 
 
 def aggregate_file(path: Path, spec, arc: ArcSettings, encoding: str = "utf8",
-                   chunk_rows: int = CHUNK_ROWS) -> FilePass:
+                   chunk_rows: int | None = None) -> FilePass:
     """:func:`aggregate_samples` of one export file (see :func:`ingest.reader.scan_samples`).
 
     Raises

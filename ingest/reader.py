@@ -48,6 +48,8 @@ class Samples:
     quality: pl.LazyFrame | None = None
     #: the same reading, batch by batch (see :class:`BatchPlan`)
     plan: BatchPlan | None = None
+    #: the file read
+    path: Path | None = None
 
 
 def file_format(path: Path) -> str | None:
@@ -398,4 +400,4 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
     quality = lf.select(*checks, offsets.str.join(", ").alias("tz_offsets"), *labels)
     return Samples(frame=lf.select(whole), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
                    has_serial=present["serial"], has_travel_speed=has_travel, notes=tuple(notes),
-                   quality=quality, plan=plan)
+                   quality=quality, plan=plan, path=path)

@@ -20,7 +20,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
 
 from monitor import physics
 
@@ -670,6 +669,8 @@ def fit_penetration_exponents(
             f"the section design is ill-conditioned (condition number {cond:.0f} > {MAX_CONDITION_NUMBER:.0f}); "
             "current, voltage and travel speed were changed together"
         )
+    from scipy import stats  # imported here: scipy.stats costs about a second at every `ctwd` start
+
     tcrit = float(stats.t.ppf(1.0 - alpha / 2.0, dof))
     se_all = np.sqrt(np.diag(cov))
     exps = np.array(JACKSON_EXPONENTS, dtype=np.float64)

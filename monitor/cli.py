@@ -52,7 +52,6 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
                      notes: list[str], history: Path | None = None, jobs: int = 1, executor: str | None = None,
                      cluster: str | None = None) -> dict:
     from monitor.pipeline import scan_paths
-    from monitor.report import render_page
     from monitor.store import files_frame, recover, to_output, write_outputs
 
     recovered = recover(out)
@@ -109,6 +108,8 @@ def _run_scan_locked(paths: list[Path], cfg: Config, out: Path, part: str | None
     }
     extra = {}
     if page:
+        from monitor.report import render_page
+
         files_df = files_frame(result.files).cast(pl.String)
         extra["summary.html"] = render_page(seams, files_df, run, out / "summary.html", cfg=cfg,
                                             files_beside=True)

@@ -17,7 +17,6 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 import polars as pl
-from scipy.optimize import brentq
 
 from monitor import physics
 from monitor.config import Config, Part, SeamSpec
@@ -85,6 +84,8 @@ def seam_limit(cfg: Config, part: Part, spec: SeamSpec) -> SeamLimit:
         return SeamLimit(spec.name, nom_mm, None, None, None,
                          f"cannot be reached: penetration stays above {pmin * 1e3:.2f} mm at every CTWD up to "
                          f"{hi * 1e3:.0f} mm ({pen(hi) * 1e3:.2f} mm there)")
+    from scipy.optimize import brentq  # here: importing scipy.optimize costs ~0.5 s at every start
+
     limit = brentq(lambda c: pen(c) - pmin, max(spec.nominal_ctwd, lo), hi, xtol=1e-9)
     mr = physics.melt_rate_from_wfs(spec.wire_feed, w.diameter, w.density)
     i_lim = float(physics.current_from_melt_rate(mr, limit, w.melt_a, w.melt_b))

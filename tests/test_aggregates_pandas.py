@@ -1,4 +1,7 @@
-"""The per-seam aggregation (polars, streaming, no window over the seam key) against an independent pandas computation.
+"""The per-seam aggregation against an independent pandas computation.
+
+Two engines are checked: the one-pass batch engine the scan uses (ingest.onepass, at several batch
+sizes so that seams straddle batch boundaries) and the whole-file lazy form (ingest.seams).
 
 Reference: pandas (a reference library) doing the same arithmetic the docstring of
 ingest.seams.seam_aggregates states — arc-on where current > threshold (a null current carries
@@ -17,6 +20,7 @@ import pandas as pd
 import polars as pl
 import pytest
 
+from ingest.onepass import aggregate_samples
 from ingest.reader import scan_samples
 from ingest.seams import collect_seam_aggregates
 from monitor.config import load_config
@@ -101,11 +105,16 @@ CHECKED = ("start_s", "arc_time_s", "n_samples", "n_trimmed", "current_mean", "c
     # a label that recurs after another seam: the seam's trim window spans both stretches
     (("S1", "S2", "S1"), True),
 ])
-def test_aggregates_equal_pandas(tmp_path, order, labelled):
+@pytest.mark.parametrize("engine", ["onepass-1M", "onepass-997", "onepass-50", "lazy-streaming"])
+def test_aggregates_equal_pandas(tmp_path, order, labelled, engine):
     path = _log(tmp_path, order, labelled)
     samples = scan_samples(path, CFG.cell.export)
     assert samples.has_seam is labelled
-    got = collect_seam_aggregates(samples.frame, ARC, labelled=labelled, engine="streaming").to_pandas()
+    if engine.startswith("onepass"):
+        chunk = {"1M": 1_000_000, "997": 997, "50": 50}[engine.split("-")[1]]
+        got = aggregate_samples(samples, ARC, chunk_rows=chunk).aggregates.to_pandas()
+    else:
+        got = collect_seam_aggregates(samples.frame, ARC, labelled=labelled, engine="streaming").to_pandas()
     want = _pandas_aggregates(path, labelled)
     assert list(got["seam"]) == list(want["seam"])
     assert len(got) == len(set(order))
