@@ -26,6 +26,7 @@ from __future__ import annotations
 import queue
 import threading
 from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -106,25 +107,31 @@ class _Text:
 def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
     """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
     t = pl.col("t")
-    df = df.with_columns((pl.col("_key") != pl.col("_key").shift(1)).fill_null(True).cum_sum().alias("_rid") - 1)
-    df = df.with_columns(pl.col("_rid").set_sorted())
-    bounds = df.group_by("_rid", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"))
-    rid = df.get_column("_rid")
-    kk = ((t >= bounds.get_column("start_s").gather(rid) + arc.trim_start)
-          & (t <= bounds.get_column("_t1").gather(rid) - arc.trim_end))
-    df = df.with_columns(kk.alias("_keep"))
+    df = df.with_columns(pl.col("_key").set_sorted())
+    # group by the sorted run key: polars groups by slices; bounds broadcast back by repetition
+    bounds = df.group_by("_key", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"),
+                                                          pl.len().alias("_len"))
+    lens = bounds.get_column("_len").to_numpy()
+    t0 = pl.Series(np.repeat(bounds.get_column("start_s").to_numpy() + arc.trim_start, lens))
+    t1 = pl.Series(np.repeat(bounds.get_column("_t1").to_numpy() - arc.trim_end, lens))
+    tt = df.get_column("t")
+    df = df.with_columns(((tt >= t0) & (tt <= t1)).alias("_keep"))
     kk = pl.col("_keep")
-    sid = pl.col("_rid")
+    sid = pl.col("_key")
     tk = pl.when(kk).then(t)
-    prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
-    step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
+    if tt.null_count() == 0 and not tt.is_nan().any() and (tt.len() < 2 or tt.diff().min() >= 0):
+        # time never goes backwards here: a run's kept samples are one contiguous block
+        step = pl.when(kk & kk.shift(1) & (sid == sid.shift(1))).then(t - t.shift(1))
+    else:
+        prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
+        step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
 
     def ok(col: str) -> pl.Expr:
         return kk & _valid(col)
 
     cur, volt = pl.col("current"), pl.col("voltage")
     df = df.select(
-        "_rid", "_key", "_pos", "ts", *(["tip_change"] if has_marker else []),
+        "_key", "_pos", "_abs", *(["tip_change"] if has_marker else []),
         tk.alias("_tk"), step.alias("_step"),
         pl.when(ok("current")).then(cur).alias("_i"),
         pl.when(ok("voltage")).then(volt).alias("_v"),
@@ -134,11 +141,10 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
     )
     i, tk = pl.col("_i"), pl.col("_tk")
     n_kept = tk.count()  # kept samples; a kept reading that is not valid is a bad one
-    out = df.group_by("_rid", maintain_order=True).agg(
-        pl.col("_key").first(),
+    out = df.group_by("_key", maintain_order=True).agg(
         pl.col("_pos").first().alias("_p0"),
         pl.col("_pos").last().alias("_p1"),
-        pl.col("ts").min().alias("start"),
+        pl.col("_abs").min().alias("_abs_min"),
         tk.min().alias("_tk_min"),
         tk.max().alias("_tk_max"),
         n_kept.alias("n_samples"),
@@ -156,13 +162,14 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
         pl.col("_step").min().alias("min_step_s"),
         *([pl.col("tip_change").any()] if has_marker else []),
     )
-    return pl.concat([bounds.drop("_rid"), out.drop("_rid")], how="horizontal")
+    return pl.concat([bounds.drop("_len"), out.drop("_key")], how="horizontal")
 
 
 def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None, arc: ArcSettings,
-            labelled: bool, has_marker: bool) -> pl.DataFrame:
+            labelled: bool, has_marker: bool, to_ts) -> pl.DataFrame:
     extra = ["tip_change"] if has_marker else []
     agg = pl.concat(parts, how="vertical_relaxed")
+    agg = agg.with_columns(to_ts(pl.col("_abs_min")).alias("start"))
     p0, p1 = agg.get_column("_p0").to_numpy(), agg.get_column("_p1").to_numpy()
     cols = {"part": text["part"].first_non_null(p0, p1) if "part" in text else None}
     if labelled:
@@ -304,7 +311,10 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     names = list(plan.text)
     text = {k: _Text() for k in names}
     label_rows: list[pl.DataFrame] = []
-    parts: list[pl.DataFrame] = []
+    # Complete runs are reduced in a second thread while this one reads on and numbers the next
+    # batch's runs (polars releases the GIL); results are kept in file order.
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ctwd-reduce")
+    parts: list[Future] = []
     quality: dict = {}
     carry: pl.DataFrame | None = None
     last_arc = False
@@ -320,17 +330,32 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             continue
         if canonical is None:
             canonical = plan.canonical(raw.select(plan.origin).item())
-        got = raw.select(*plan.checks).row(0, named=True)
+        fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
+        got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
         first_time = raw.get_column(time_col)[0]
         if prev_time is not None and first_time is not None and first_time == prev_time:
             got["dup_t"] = (got.get("dup_t") or 0) + 1
         prev_time = raw.get_column(time_col)[-1]
-        _combine(quality, got)
         marks = [_changed(k, last_text.get(k), offset == 0).alias(f"_c_{k}") for k in names]
         txt = raw.select(*plan.text.values())
         chg = txt.select(marks) if names else None
         pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
-        b = raw.select(*canonical, pos).with_columns(_arc_state(arc, last_arc))
+        b = raw.select(*canonical, pos)
+        if fast_checks:
+            # counts from the columns themselves: a canonical channel is null where the export's is
+            # null, NaN, or outside the plausibility limits (ingest.reader.HARD_LIMITS)
+            for alias, col, _numeric in plan.channels:
+                x, c = raw.get_column(col), b.get_column(alias)
+                nan = int(x.is_nan().sum()) if x.dtype.is_float() else 0
+                got[f"{alias}_nulls"] = x.null_count()
+                got[f"{alias}_absurd"] = c.null_count() - x.null_count() - nan
+                got[f"{alias}_max"] = c.max()
+        _combine(quality, got)
+        cur = b.get_column("current")
+        if cur.null_count() == 0:  # nothing to carry over: arc on is just current > threshold
+            b = b.with_columns((pl.col("current") > arc.min_current).alias("_arc"))
+        else:
+            b = b.with_columns(_arc_state(arc, last_arc))
         for k in names:
             m = chg.get_column(f"_c_{k}")
             text[k].add(b.get_column("_pos").filter(m), txt.get_column(k).filter(m))
@@ -363,9 +388,11 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
         split = b.get_column("_key").search_sorted(last, side="left")
         carry = b.slice(split)
         if split:
-            parts.append(_reduce_runs(b.slice(0, split), arc, has_marker))
+            parts.append(pool.submit(_reduce_runs, b.slice(0, split), arc, has_marker))
+            if len(parts) >= 2 and not parts[-2].done():
+                parts[-2].result()  # at most two batches being reduced: memory stays bounded
     if carry is not None and carry.height:
-        parts.append(_reduce_runs(carry, arc, has_marker))
+        parts.append(pool.submit(_reduce_runs, carry, arc, has_marker))
     if not quality:
         quality = {name: (0 if how == "sum" else None) for name, how in CHECK_COMBINE.items()}
     quality["tz_offsets"] = ", ".join(sorted(quality.get("tz_offsets") or ()))
@@ -374,8 +401,10 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
         keyed = labels.filter(pl.col("seam").is_not_null()) if labels is not None else pl.DataFrame()
         quality["seam_labels"] = sorted(set((keyed.get_column("serial").fill_null("") + _KEY + keyed.get_column("seam"))
                                             .to_list())) if keyed.height else []
-    if parts:
-        agg = _finish(parts, text, labels, arc, labelled, has_marker)
+    done = [f.result() for f in parts]
+    pool.shutdown()
+    if done:
+        agg = _finish(done, text, labels, arc, labelled, has_marker, plan.to_ts)
     else:
         agg = pl.DataFrame()
     if labelled and agg.height and agg.get_column("seam_key").is_duplicated().any():

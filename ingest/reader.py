@@ -239,8 +239,8 @@ class BatchPlan:
 
     Used by :func:`ingest.onepass.aggregate_file`, which streams ``source`` (the export's own
     columns, lazily, in file order) in batches: ``origin`` (one value) is evaluated on the first
-    batch, ``canonical(origin)`` gives the numeric canonical columns of every batch (``t``, ``ts``,
-    channels, ``tip_change`` when mapped), ``text`` the label columns, ``checks`` one row of
+    batch, ``canonical(origin)`` gives the numeric canonical columns of every batch (``t``, ``_abs``
+    the time as stored, channels, ``tip_change`` when mapped), ``text`` the label columns, ``checks`` one row of
     per-batch counts (combined by :data:`CHECK_COMBINE`; ``seam_labels`` is left to the caller).
     """
 
@@ -251,6 +251,13 @@ class BatchPlan:
     text: dict[str, pl.Expr]
     checks: tuple[pl.Expr, ...]
     time_column: str
+    #: ``rows``, ``dup_t``, ``tz_offsets`` only: the channel counts then come from the columns
+    #: (null counts, NaN counts, maxima), valid when every channel is numeric in the export
+    light_checks: tuple[pl.Expr, ...] = ()
+    #: (alias, export column, numeric?) of current, voltage, wire feed
+    channels: tuple[tuple[str, str, bool], ...] = ()
+    #: an aggregate of the ``_abs`` column (min per seam) to a UTC timestamp (us)
+    to_ts: Callable[[pl.Expr], pl.Expr] | None = None
 
 
 #: How per-batch check values combine into the file's: "sum", "max", or "union" (lists of strings).
@@ -390,11 +397,39 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         used.append(spec.travel_speed.column)
     source = lf.select(list(dict.fromkeys(used)))
 
-    def canonical(origin) -> list[pl.Expr]:
-        return [_t_from(abs_t, numeric_time, pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)), *exprs]
+    tdt = schema[spec.time]
+    if isinstance(tdt, pl.Datetime) and tdt.time_unit in ("ms", "us"):
+        # the stored integers are UTC epoch counts whatever the zone: no conversion per row
+        per_s = 1e3 if tdt.time_unit == "ms" else 1e6
+        batch_abs = pl.col(spec.time).to_physical()
 
-    plan = BatchPlan(source=source, origin=abs_t.first(), canonical=canonical, text=text,
-                     checks=(*checks, offsets.implode().alias("tz_offsets")), time_column=spec.time)
+        def to_ts(v: pl.Expr) -> pl.Expr:
+            return (v * (1000 if tdt.time_unit == "ms" else 1)).cast(pl.Datetime("us", "UTC"))
+    elif numeric_time:
+        per_s, batch_abs = None, abs_t
+
+        def to_ts(v: pl.Expr) -> pl.Expr:
+            return pl.lit(None, dtype=pl.Datetime("us", "UTC"))
+    else:
+        per_s, batch_abs = 1e6, abs_t
+
+        def to_ts(v: pl.Expr) -> pl.Expr:
+            return v.cast(pl.Datetime("us", "UTC"))
+
+    def canonical(origin) -> list[pl.Expr]:
+        o = pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)
+        # exactly the whole-file form's float: microseconds since the first sample / 1e6
+        us = (batch_abs - o) * 1000 if per_s == 1e3 else batch_abs - o
+        t = (batch_abs - o) if per_s is None else us.cast(pl.Float64) / 1e6
+        return [t.alias("t"), batch_abs.alias("_abs"), *exprs[1:]]
+
+    channels = tuple((alias, ch.column, schema[ch.column].is_numeric())
+                     for ch, alias in ((spec.current, "current"), (spec.voltage, "voltage"),
+                                       (spec.wire_feed, "wire_feed")))
+    light = (pl.len().alias("rows"), checks[-1], offsets.implode().alias("tz_offsets"))
+    plan = BatchPlan(source=source, origin=batch_abs.first(), canonical=canonical, text=text,
+                     checks=(*checks, offsets.implode().alias("tz_offsets")), time_column=spec.time,
+                     light_checks=light, channels=channels, to_ts=to_ts)
     # Whole-file lazy forms (traces, the window fallback, tests): t from the first value.
     whole = [_t_from(abs_t, numeric_time, abs_t.first()), *exprs[:5], *strings, *exprs[5:]]
     quality = lf.select(*checks, offsets.str.join(", ").alias("tz_offsets"), *labels)
