@@ -4,8 +4,10 @@ For a seam welded at its programmed WFS, voltage and travel speed by a constant-
 a longer CTWD preheats the wire more, so the current needed to melt the fed wire falls
 (melting-rate relation solved for current, ``physics.current_from_melt_rate``) and Jackson's
 penetration falls with it (``physics.jackson_penetration``). The drift budget is the CTWD
-L_lim with P(L_lim) = P_min, solved by bracketing root search (``scipy.optimize.brentq``) over
-the physical range of ``judge.CTWD_RANGE_M``; the margin is L_lim − nominal.
+L_lim with P(L_lim) = P_min: in closed form when the current exponent is positive (the current
+that gives P_min, then the Lesnewich relation solved for the CTWD), else by bracketing root
+search (``scipy.optimize.brentq``) over the physical range of ``judge.CTWD_RANGE_M``; the margin
+is L_lim − nominal.
 
 Steady current is assumed (ripple factor 1). A screening figure, not a qualified limit: the
 applicable code and the qualified WPS decide what may be welded.
@@ -84,10 +86,12 @@ def seam_limit(cfg: Config, part: Part, spec: SeamSpec) -> SeamLimit:
         return SeamLimit(spec.name, nom_mm, None, None, None,
                          f"cannot be reached: penetration stays above {pmin * 1e3:.2f} mm at every CTWD up to "
                          f"{hi * 1e3:.0f} mm ({pen(hi) * 1e3:.2f} mm there)")
-    from scipy.optimize import brentq  # here: importing scipy.optimize costs ~0.5 s at every start
-
-    limit = brentq(lambda c: pen(c) - pmin, max(spec.nominal_ctwd, lo), hi, xtol=1e-9)
     mr = physics.melt_rate_from_wfs(spec.wire_feed, w.diameter, w.density)
+    limit = _closed_form_limit(part, spec, w, mr, pmin, max(spec.nominal_ctwd, lo), hi)
+    if limit is None:
+        from scipy.optimize import brentq  # here: importing scipy.optimize costs ~0.5 s at every start
+
+        limit = brentq(lambda c: pen(c) - pmin, max(spec.nominal_ctwd, lo), hi, xtol=1e-9)
     i_lim = float(physics.current_from_melt_rate(mr, limit, w.melt_a, w.melt_b))
     return SeamLimit(spec.name, nom_mm, limit * 1e3, i_lim, (limit - spec.nominal_ctwd) * 1e3)
 
@@ -97,6 +101,25 @@ def part_limits(cfg: Config, part_name: str) -> list[SeamLimit]:
     part = cfg.parts[part_name]
     specs = list(part.seams.values()) or [part.defaults]
     return [seam_limit(cfg, part, s) for s in specs]
+
+
+def _closed_form_limit(part: Part, spec: SeamSpec, w, mr: float, pmin: float, lo: float, hi: float) -> float | None:
+    """L_lim without a root search when the current exponent is positive (Jackson's 4/3).
+
+    P rises with Ī alone at fixed V and S, so P = P_min fixes the current: Ī_lim = I_ref ·
+    (P_min / (P_ref · (V/V_ref)^ev · (S/S_ref)^es))^(1/ei); the Lesnewich relation solved for the
+    CTWD at steady current (⟨I²⟩ = Ī²) then gives L_lim (``physics.ctwd_from_melt_rate``).
+    None when the exponent is not positive or the result falls outside [lo, hi] (the caller
+    then searches for the root).
+    """
+    r = part.reference
+    ei, ev, es = (float(np.asarray(e)) for e in r.exponents)
+    if not ei > 0:
+        return None
+    rest = r.depth * (spec.voltage / r.voltage) ** ev * (spec.travel_speed / r.travel_speed) ** es
+    i_lim = r.current * (pmin / rest) ** (1.0 / ei)
+    limit = float(physics.ctwd_from_melt_rate(mr, i_lim, i_lim * i_lim, w.melt_a, w.melt_b))
+    return limit if lo <= limit <= hi else None
 
 
 def with_limit_column(seams: pl.DataFrame, cfg: Config) -> pl.DataFrame:

@@ -105,3 +105,30 @@ def test_minimum_that_cannot_be_reached(tmp_path, min_pen, words):
 def test_unknown_part_is_a_usage_error(tmp_path):
     res = CliRunner().invoke(main, ["limits", "--config", str(write_config(tmp_path)), "--part", "NOPE"])
     assert res.exit_code == 2 and "known parts: CHECK" in res.output
+
+
+def test_closed_form_limit_equals_scipy_root_search():
+    # Reference: scipy.optimize.brentq (a reference library) on the same P(L) relation; the scan
+    # uses the closed form (Jackson inverted for current, Lesnewich solved for CTWD).
+    from scipy.optimize import brentq
+
+    from monitor.judge import CTWD_RANGE_M
+    from monitor.limits import seam_limit
+
+    cfg = load_config(REPO / "config")
+    checked = 0
+    for part in cfg.parts.values():
+        w = cfg.wires[part.wire]
+        for spec in part.seams.values():
+            lim = seam_limit(cfg, part, spec)
+            if lim.limit_ctwd_mm is None:
+                continue
+
+            def gap(c, spec=spec, part=part, w=w):
+                return float(penetration_at_ctwd(c, spec.wire_feed, spec.voltage, spec.travel_speed, part,
+                                                 w.melt_a, w.melt_b, w.diameter, w.density)[1]) - spec.min_penetration
+
+            root = brentq(gap, max(spec.nominal_ctwd, CTWD_RANGE_M[0]), CTWD_RANGE_M[1], xtol=1e-12)
+            assert lim.limit_ctwd_mm == pytest.approx(root * 1e3, abs=1e-6)
+            checked += 1
+    assert checked >= 3
