@@ -329,7 +329,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
         if n == 0:
             continue
         if canonical is None:
-            canonical = plan.canonical(raw.select(plan.origin).item())
+            canonical = plan.canonical(raw.head(1).select(plan.origin).item())  # parse one value, not the batch
         fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
         got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
         first_time = raw.get_column(time_col)[0]

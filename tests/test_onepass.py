@@ -140,3 +140,4 @@ def test_same_bits_whatever_the_thread_count(tmp_path):
     here = aggregate_file(path, SPEC, ARC).aggregates
     assert _frame_bytes(here) == _frame_bytes(aggregate_file(path, SPEC, ARC).aggregates)
     assert len(seen) == 1
+
