@@ -324,75 +324,79 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
     time_col = plan.time_column
-    for raw in _prefetch(_batches(samples, chunk_rows)):
-        n = raw.height
-        if n == 0:
-            continue
-        if canonical is None:
-            canonical = plan.canonical(raw.head(1).select(plan.origin).item())  # parse one value, not the batch
-        fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
-        got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
-        first_time = raw.get_column(time_col)[0]
-        if prev_time is not None and first_time is not None and first_time == prev_time:
-            got["dup_t"] = (got.get("dup_t") or 0) + 1
-        prev_time = raw.get_column(time_col)[-1]
-        marks = [_changed(k, last_text.get(k), offset == 0).alias(f"_c_{k}") for k in names]
-        txt = raw.select(*plan.text.values())
-        chg = txt.select(marks) if names else None
-        pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
-        b = raw.select(*canonical, pos)
-        if fast_checks:
-            # counts from the columns themselves: a canonical channel is null where the export's is
-            # null, NaN, or outside the plausibility limits (ingest.reader.HARD_LIMITS)
-            for alias, col, _numeric in plan.channels:
-                x, c = raw.get_column(col), b.get_column(alias)
-                nan = int(x.is_nan().sum()) if x.dtype.is_float() else 0
-                got[f"{alias}_nulls"] = x.null_count()
-                got[f"{alias}_absurd"] = c.null_count() - x.null_count() - nan
-                got[f"{alias}_max"] = c.max()
-        _combine(quality, got)
-        cur = b.get_column("current")
-        if cur.null_count() == 0:  # nothing to carry over: arc on is just current > threshold
-            b = b.with_columns((pl.col("current") > arc.min_current).alias("_arc"))
-        else:
-            b = b.with_columns(_arc_state(arc, last_arc))
-        for k in names:
-            m = chg.get_column(f"_c_{k}")
-            text[k].add(b.get_column("_pos").filter(m), txt.get_column(k).filter(m))
-            last_text[k] = txt.get_column(k)[-1]
-        if labelled:
-            new = chg.get_column("_c_seam")
-            if "serial" in names:
-                new = new | chg.get_column("_c_serial")
-            keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
-            in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
-            label_rows.append(pl.DataFrame([keys.filter(new), txt.get_column("seam").filter(new),
-                                            (txt.get_column("serial").filter(new) if "serial" in names
-                                             else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
-        else:
-            arc_on = b.get_column("_arc")
-            first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
-            new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
-            keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
-            in_run = arc_on
-        key_base = int(keys[-1]) + 1
-        last_arc = bool(b.get_column("_arc")[-1])
-        b = b.with_columns(keys).filter(in_run).drop("_arc")
+    try:
+        for raw in _prefetch(_batches(samples, chunk_rows)):
+            n = raw.height
+            if n == 0:
+                continue
+            if canonical is None:
+                canonical = plan.canonical(raw.head(1).select(plan.origin).item())  # parse one value, not the batch
+            fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
+            got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
+            first_time = raw.get_column(time_col)[0]
+            if prev_time is not None and first_time is not None and first_time == prev_time:
+                got["dup_t"] = (got.get("dup_t") or 0) + 1
+            prev_time = raw.get_column(time_col)[-1]
+            marks = [_changed(k, last_text.get(k), offset == 0).alias(f"_c_{k}") for k in names]
+            txt = raw.select(*plan.text.values())
+            chg = txt.select(marks) if names else None
+            pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
+            b = raw.select(*canonical, pos)
+            if fast_checks:
+                # counts from the columns themselves: a canonical channel is null where the export's is
+                # null, NaN, or outside the plausibility limits (ingest.reader.HARD_LIMITS)
+                for alias, col, _numeric in plan.channels:
+                    x, c = raw.get_column(col), b.get_column(alias)
+                    nan = int(x.is_nan().sum()) if x.dtype.is_float() else 0
+                    got[f"{alias}_nulls"] = x.null_count()
+                    got[f"{alias}_absurd"] = c.null_count() - x.null_count() - nan
+                    got[f"{alias}_max"] = c.max()
+            _combine(quality, got)
+            cur = b.get_column("current")
+            if cur.null_count() == 0:  # nothing to carry over: arc on is just current > threshold
+                b = b.with_columns((pl.col("current") > arc.min_current).alias("_arc"))
+            else:
+                b = b.with_columns(_arc_state(arc, last_arc))
+            for k in names:
+                m = chg.get_column(f"_c_{k}")
+                text[k].add(b.get_column("_pos").filter(m), txt.get_column(k).filter(m))
+                last_text[k] = txt.get_column(k)[-1]
+            if labelled:
+                new = chg.get_column("_c_seam")
+                if "serial" in names:
+                    new = new | chg.get_column("_c_serial")
+                keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+                in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
+                label_rows.append(pl.DataFrame([keys.filter(new), txt.get_column("seam").filter(new),
+                                                (txt.get_column("serial").filter(new) if "serial" in names
+                                                 else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
+            else:
+                arc_on = b.get_column("_arc")
+                first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
+                new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
+                keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+                in_run = arc_on
+            key_base = int(keys[-1]) + 1
+            last_arc = bool(b.get_column("_arc")[-1])
+            b = b.with_columns(keys).filter(in_run).drop("_arc")
+            if carry is not None and carry.height:
+                b = pl.concat([carry, b], how="vertical_relaxed")
+            offset += n
+            if b.height == 0:
+                carry = None
+                continue
+            last = b.get_column("_key")[-1]
+            split = b.get_column("_key").search_sorted(last, side="left")
+            carry = b.slice(split)
+            if split:
+                parts.append(pool.submit(_reduce_runs, b.slice(0, split), arc, has_marker))
+                if len(parts) >= 2 and not parts[-2].done():
+                    parts[-2].result()  # at most two batches being reduced: memory stays bounded
         if carry is not None and carry.height:
-            b = pl.concat([carry, b], how="vertical_relaxed")
-        offset += n
-        if b.height == 0:
-            carry = None
-            continue
-        last = b.get_column("_key")[-1]
-        split = b.get_column("_key").search_sorted(last, side="left")
-        carry = b.slice(split)
-        if split:
-            parts.append(pool.submit(_reduce_runs, b.slice(0, split), arc, has_marker))
-            if len(parts) >= 2 and not parts[-2].done():
-                parts[-2].result()  # at most two batches being reduced: memory stays bounded
-    if carry is not None and carry.height:
-        parts.append(pool.submit(_reduce_runs, carry, arc, has_marker))
+            parts.append(pool.submit(_reduce_runs, carry, arc, has_marker))
+        done = [f.result() for f in parts]
+    finally:
+        pool.shutdown(wait=False, cancel_futures=True)
     if not quality:
         quality = {name: (0 if how == "sum" else None) for name, how in CHECK_COMBINE.items()}
     quality["tz_offsets"] = ", ".join(sorted(quality.get("tz_offsets") or ()))
@@ -401,8 +405,6 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
         keyed = labels.filter(pl.col("seam").is_not_null()) if labels is not None else pl.DataFrame()
         quality["seam_labels"] = sorted(set((keyed.get_column("serial").fill_null("") + _KEY + keyed.get_column("seam"))
                                             .to_list())) if keyed.height else []
-    done = [f.result() for f in parts]
-    pool.shutdown()
     if done:
         agg = _finish(done, text, labels, arc, labelled, has_marker, plan.to_ts)
     else:
