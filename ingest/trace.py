@@ -113,16 +113,72 @@ def read_seam_traces(
         return []
     samples = scan_samples(Path(path), spec)
     t = pl.col("t")
+    windows = [(float(start) - margin_s, float(start) + float(dur) + margin_s) for _s, _n, start, dur in seams]
     inside = pl.lit(False)
-    for _seam, _serial, start, dur in seams:
-        inside = inside | t.is_between(float(start) - margin_s, float(start) + float(dur) + margin_s)
+    for lo, hi in windows:
+        inside = inside | t.is_between(lo, hi)
     try:
-        subset = samples.frame.filter(inside).collect().lazy()
+        pruned = _row_groups_read(samples, windows, inside)
+        subset = (pruned if pruned is not None else samples.frame.filter(inside).collect()).lazy()
     except (pl.exceptions.PolarsError, OSError) as exc:
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise IngestError(f"{path}: cannot be read: {msg[:200]}") from None
     return [_trace_from(subset, samples.has_seam, samples.has_serial, path, arc, seam, serial, start, dur,
                         max_points, margin_s) for seam, serial, start, dur in seams]
+
+
+def _row_groups_read(samples, windows: list[tuple[float, float]], inside: pl.Expr) -> pl.DataFrame | None:
+    """The samples inside ``windows`` [s since the first sample] of a Parquet export, reading only
+    the row groups whose time statistics overlap a window (a few row groups of a long night).
+
+    None when that cannot be decided (not Parquet, no statistics, text time): then the caller
+    reads the whole file once.
+    """
+    plan = samples.plan
+    path = samples.path
+    if plan is None or path is None or path.suffix.lower() not in (".parquet", ".pq"):
+        return None
+    import pyarrow.parquet as pq
+
+    meta = pq.ParquetFile(path).metadata
+    names = [meta.schema.column(j).path for j in range(meta.num_columns)]
+    if plan.time_column not in names:
+        return None
+    j = names.index(plan.time_column)
+    src_type = plan.source.collect_schema()[plan.time_column]
+    if isinstance(src_type, pl.Datetime) and src_type.time_unit in ("ms", "us"):
+        per_s = 1e3 if src_type.time_unit == "ms" else 1e6
+    elif src_type.is_numeric():
+        per_s = 1.0
+    else:
+        return None
+    origin = plan.source.head(1).collect().select(plan.origin).item()
+    if origin is None:
+        return None
+    keep: list[tuple[int, int]] = []
+    off = 0
+    for i in range(meta.num_row_groups):
+        rg = meta.row_group(i)
+        st = rg.column(j).statistics
+        n = rg.num_rows
+        if st is None or not st.has_min_max:
+            return None
+        lo_s, hi_s = (float(st.min_raw) - origin) / per_s, (float(st.max_raw) - origin) / per_s
+        if any(lo_s <= b and a <= hi_s for a, b in windows):
+            if keep and keep[-1][0] + keep[-1][1] == off:
+                keep[-1] = (keep[-1][0], keep[-1][1] + n)
+            else:
+                keep.append((off, n))
+        off += n
+    cols = [*plan.canonical(origin), *plan.text.values()]
+    frames = [plan.source.slice(a, n).collect().select(cols).filter(inside) for a, n in keep]
+    if not frames:
+        return pl.DataFrame(schema=samples.frame.collect_schema())
+    got = pl.concat(frames)
+    for c in ("seam", "part", "serial"):
+        if c not in got.columns:
+            got = got.with_columns(pl.lit(None, dtype=pl.String).alias(c))
+    return got
 
 
 def _trace_from(frame: pl.LazyFrame, has_seam: bool, has_serial: bool, path: Path, arc: ArcSettings,

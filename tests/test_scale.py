@@ -129,3 +129,34 @@ def test_unknown_scheduler_is_a_one_line_error(tmp_path, monkeypatch):
                                   str(tmp_path / "o"), "-q", "--cluster", "tcp://127.0.0.1:9"])
     assert r.exit_code == 2
     assert "cannot reach the Dask scheduler" in r.output
+
+
+def test_traces_read_only_the_row_groups_they_need(tmp_path, monkeypatch):
+    # The page re-reads flagged seams; on a long Parquet night only the row groups whose time
+    # statistics overlap a seam are read. The traces must equal those of a whole-file read.
+    import ingest.trace as trace
+
+    path = tmp_path / "long.parquet"
+    _write_long_log(path, 60)  # 60 seams of 4 s at 1 kHz, 100 k-row row groups
+    cfg = load_config(CONFIG)
+    spec, arc = cfg.cell.export, cfg.cell.arc
+    wanted = [("S2", "SN-3", 9 * 4.5 + 0.5 + 4.5, 4.0), ("S1", "SN-15", 45 * 4.5 + 0.5, 4.0)]
+    read = []
+    real_slice = pl.LazyFrame.slice
+
+    def counting(self, offset, length=None):
+        read.append(length)
+        return real_slice(self, offset, length)
+
+    monkeypatch.setattr(pl.LazyFrame, "slice", counting)
+    pruned = trace.read_seam_traces(path, spec, arc, wanted)
+    monkeypatch.setattr(pl.LazyFrame, "slice", real_slice)
+    assert 0 < sum(n for n in read if n) <= 400_000  # a few row groups of 1.215 M rows
+    monkeypatch.setattr(trace, "_row_groups_read", lambda *a: None)
+    whole = trace.read_seam_traces(path, spec, arc, wanted)
+    for a, b in zip(pruned, whole, strict=True):
+        assert a is not None and b is not None
+        assert a.n_samples == b.n_samples > 3000
+        np.testing.assert_array_equal(a.t, b.t)
+        for c in a.mean:
+            np.testing.assert_array_equal(a.mean[c], b.mean[c])
