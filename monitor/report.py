@@ -200,7 +200,7 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
         lines.append(ax.plot([], [], color="black", lw=0.8, ls=ls, zorder=2)[0])
         ax.set_ylabel(label)
         ax.yaxis.set_major_locator(MaxNLocator(3))  # few ticks: axis drawing is most of a trace's cost
-        ax.xaxis.set_major_locator(MaxNLocator(8))
+        ax.xaxis.set_major_locator(MaxNLocator(5))
     axes[-1].set_xlabel("time from arc start [s]")
     transient: list[Any] = []
     # one read a source file for all its flagged seams (a long file is scanned once, not per seam)
