@@ -35,7 +35,7 @@ import polars as pl
 
 from ingest.reader import CHECK_COMBINE, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
-from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
+from ingest.seams import AGGREGATE_COLUMNS, masked_means, seam_aggregates
 
 __all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS"]
 
@@ -149,12 +149,7 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
         tk.max().alias("_tk_max"),
         n_kept.alias("n_samples"),
         pl.len().alias("_n_all"),
-        i.mean().alias("current_mean"),
-        (i * i).mean().alias("current_sq_mean"),
-        pl.col("_v").mean().alias("voltage_mean"),
-        pl.col("_p").mean().alias("power_mean"),
-        pl.col("_w").mean().alias("wire_feed_mean"),
-        pl.col("_s").mean().alias("travel_speed_mean"),
+        *masked_means(),
         (n_kept - i.count()).alias("current_bad"),
         (n_kept - pl.col("_v").count()).alias("voltage_bad"),
         (n_kept - pl.col("_w").count()).alias("wire_feed_bad"),

@@ -113,6 +113,21 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     return agg.select(*AGGREGATE_COLUMNS, *(["tip_change"] if has_marker else []))
 
 
+def masked_means() -> list[pl.Expr]:
+    """Per-seam means of the masked channel columns (null where a reading is not kept or not
+    valid): ``_i`` current, ``_v`` voltage, ``_p`` V·I, ``_w`` WFS, ``_s`` travel speed; ⟨I²⟩ in
+    float64 over the same current samples."""
+    i = pl.col("_i")
+    return [
+        i.mean().alias("current_mean"),
+        (i * i).mean().alias("current_sq_mean"),
+        pl.col("_v").mean().alias("voltage_mean"),
+        pl.col("_p").mean().alias("power_mean"),
+        pl.col("_w").mean().alias("wire_feed_mean"),
+        pl.col("_s").mean().alias("travel_speed_mean"),
+    ]
+
+
 def run_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> pl.LazyFrame:
     """Per-seam aggregates without a window over the seam key: bounds first, then one grouping.
 
@@ -177,18 +192,12 @@ def run_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> p
         (kk & ~_valid("voltage")).alias("_vb"),
         (kk & ~_valid("wire_feed")).alias("_wb"),
     )
-    i = pl.col("_i")
     sums = lf.group_by("_id").agg(
         pl.col("_tk").min().alias("_tk_min"),
         pl.col("_tk").max().alias("_tk_max"),
         kk.sum().alias("n_samples"),
         pl.len().alias("_n_all"),
-        i.mean().alias("current_mean"),
-        (i * i).mean().alias("current_sq_mean"),
-        pl.col("_v").mean().alias("voltage_mean"),
-        pl.col("_p").mean().alias("power_mean"),
-        pl.col("_w").mean().alias("wire_feed_mean"),
-        pl.col("_s").mean().alias("travel_speed_mean"),
+        *masked_means(),
         pl.col("_ib").sum().alias("current_bad"),
         pl.col("_vb").sum().alias("voltage_bad"),
         pl.col("_wb").sum().alias("wire_feed_bad"),
