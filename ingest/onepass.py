@@ -35,7 +35,7 @@ import polars as pl
 
 from ingest.reader import CHECK_COMBINE, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
-from ingest.seams import AGGREGATE_COLUMNS, masked_means, seam_aggregates
+from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
 
 __all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS"]
 
@@ -104,6 +104,21 @@ class _Text:
         return pl.select(pl.when(pl.Series(hit)).then(got)).to_series()
 
 
+def _masked_means() -> list[pl.Expr]:
+    """Per-seam means of the masked channel columns (null where a reading is not kept or not
+    valid): ``_i`` current, ``_v`` voltage, ``_p`` V·I, ``_w`` WFS, ``_s`` travel speed; ⟨I²⟩ in
+    float64 over the same current samples."""
+    i = pl.col("_i")
+    return [
+        i.mean().alias("current_mean"),
+        (i * i).mean().alias("current_sq_mean"),
+        pl.col("_v").mean().alias("voltage_mean"),
+        pl.col("_p").mean().alias("power_mean"),
+        pl.col("_w").mean().alias("wire_feed_mean"),
+        pl.col("_s").mean().alias("travel_speed_mean"),
+    ]
+
+
 def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
     """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
     t = pl.col("t")
@@ -149,7 +164,7 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
         tk.max().alias("_tk_max"),
         n_kept.alias("n_samples"),
         pl.len().alias("_n_all"),
-        *masked_means(),
+        *_masked_means(),
         (n_kept - i.count()).alias("current_bad"),
         (n_kept - pl.col("_v").count()).alias("voltage_bad"),
         (n_kept - pl.col("_w").count()).alias("wire_feed_bad"),
@@ -293,8 +308,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     -------
     FilePass
         ``aggregates`` has the columns and meaning documented in
-        :func:`ingest.seams.seam_aggregates`; ``quality`` the checks listed on
-        :class:`ingest.reader.Samples` (``tz_offsets`` a ", "-joined string, ``seam_labels`` a
+        :func:`ingest.seams.seam_aggregates`; ``quality`` the checks of
+        :data:`ingest.reader.CHECK_COMBINE` (``tz_offsets`` a ", "-joined string, ``seam_labels`` a
         sorted list).
     """
     plan = samples.plan
@@ -319,6 +334,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
     time_col = plan.time_column
+    # channel counts from the columns themselves when every channel is numeric in the export
+    fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
     try:
         for raw in _prefetch(_batches(samples, chunk_rows)):
             n = raw.height
@@ -326,7 +343,6 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 continue
             if canonical is None:
                 canonical = plan.canonical(raw.head(1).select(plan.origin).item())  # parse one value, not the batch
-            fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
             got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
             first_time = raw.get_column(time_col)[0]
             if prev_time is not None and first_time is not None and first_time == prev_time:

@@ -42,10 +42,6 @@ class Samples:
     has_travel_speed: bool
     #: repairs made while reading (one line each), e.g. bytes that were not UTF-8
     notes: tuple[str, ...] = ()
-    #: one-row lazy frame of file-level checks: ``rows``, ``<ch>_nulls``, ``<ch>_absurd``,
-    #: ``<ch>_max`` (SI, over plausible readings), ``dup_t``, ``tz_offsets``, ``seam_labels`` (labelled
-    #: files: every "serial\u241fseam" key)
-    quality: pl.LazyFrame | None = None
     #: the same reading, batch by batch (see :class:`BatchPlan`)
     plan: BatchPlan | None = None
     #: the file read
@@ -260,7 +256,11 @@ class BatchPlan:
     to_ts: Callable[[pl.Expr], pl.Expr] | None = None
 
 
-#: How per-batch check values combine into the file's: "sum", "max", or "union" (lists of strings).
+#: The file-level checks and how per-batch values combine into the file's ("sum", "max", or "union"
+#: of strings): ``rows``; ``<ch>_nulls`` and ``<ch>_absurd`` (readings outside HARD_LIMITS, sensor
+#: sentinels or saturation) and ``<ch>_max`` (SI, over plausible readings) for current, voltage,
+#: wire feed; ``dup_t`` repeated timestamps; ``tz_offsets`` the UTC offsets text timestamps carry;
+#: ``seam_labels`` (labelled files) every "serial\u241fseam" key.
 CHECK_COMBINE = {"rows": "sum", "dup_t": "sum", "tz_offsets": "union", "seam_labels": "union",
                  **{f"{c}_{k}": ("max" if k == "max" else "sum") for c in ("current", "voltage", "wire_feed")
                     for k in ("nulls", "absurd", "max")}}
@@ -384,13 +384,6 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         offsets = ends.str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1).drop_nulls().unique().sort()
     else:
         offsets = pl.lit(None, dtype=pl.String).drop_nulls()
-    if present["seam"]:
-        # every (serial, seam) label of the file, keyed as ingest.seams keys labelled seams
-        serial = pl.col(spec.serial).cast(pl.String).fill_null("") if present["serial"] else pl.lit("")
-        key = serial + "\u241f" + pl.col(spec.seam).cast(pl.String)
-        labels = [key.drop_nulls().unique().implode().alias("seam_labels")]
-    else:
-        labels = []
     used = [spec.time, spec.current.column, spec.voltage.column, spec.wire_feed.column,
             *(c for c in (spec.seam, spec.part, spec.serial, spec.tip_change) if c is not None and c in schema)]
     if has_travel:
@@ -432,7 +425,6 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
                      light_checks=light, channels=channels, to_ts=to_ts)
     # Whole-file lazy forms (traces, the window fallback, tests): t from the first value.
     whole = [_t_from(abs_t, numeric_time, abs_t.first()), *exprs[:5], *strings, *exprs[5:]]
-    quality = lf.select(*checks, offsets.str.join(", ").alias("tz_offsets"), *labels)
     return Samples(frame=lf.select(whole), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],
                    has_serial=present["serial"], has_travel_speed=has_travel, notes=tuple(notes),
-                   quality=quality, plan=plan, path=path)
+                   plan=plan, path=path)

@@ -1,4 +1,8 @@
-"""Arc-on segmentation, trimming and per-seam aggregation, in one lazy polars pass."""
+"""Arc-on segmentation, trimming and per-seam aggregation as one whole-file lazy polars query.
+
+The scan uses :mod:`ingest.onepass` (batches, bounded memory); this window form is its fallback
+for a seam label that recurs later in a file, and the lazy cross-check in the tests.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +10,7 @@ import polars as pl
 
 from ingest.schema import ArcSettings
 
-__all__ = ["seam_aggregates", "run_aggregates", "collect_seam_aggregates", "AGGREGATE_COLUMNS"]
+__all__ = ["seam_aggregates", "AGGREGATE_COLUMNS"]
 
 #: Columns of the per-seam aggregate frame (SI units; see README "Outputs").
 AGGREGATE_COLUMNS = (
@@ -111,127 +115,3 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))
         agg = agg.with_columns(("S" + number.cast(pl.String)).alias("seam"))
     return agg.select(*AGGREGATE_COLUMNS, *(["tip_change"] if has_marker else []))
-
-
-def masked_means() -> list[pl.Expr]:
-    """Per-seam means of the masked channel columns (null where a reading is not kept or not
-    valid): ``_i`` current, ``_v`` voltage, ``_p`` V·I, ``_w`` WFS, ``_s`` travel speed; ⟨I²⟩ in
-    float64 over the same current samples."""
-    i = pl.col("_i")
-    return [
-        i.mean().alias("current_mean"),
-        (i * i).mean().alias("current_sq_mean"),
-        pl.col("_v").mean().alias("voltage_mean"),
-        pl.col("_p").mean().alias("power_mean"),
-        pl.col("_w").mean().alias("wire_feed_mean"),
-        pl.col("_s").mean().alias("travel_speed_mean"),
-    ]
-
-
-def run_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> pl.LazyFrame:
-    """Per-seam aggregates without a window over the seam key: bounds first, then one grouping.
-
-    Same columns and meaning as :func:`seam_aggregates`, plus ``runs``: how many separate
-    stretches of kept samples the seam has along the file (1 for a well-formed export, where a
-    seam's samples are contiguous). ``max_gap_s``/``min_step_s`` only see steps inside a
-    stretch, so :func:`collect_seam_aggregates` falls back to :func:`seam_aggregates` for a
-    file with ``runs`` > 1.
-
-    Plan: (1) arc-on samples grouped by seam give each seam's first/last time (a tiny frame,
-    numbered by an integer id); (2) that frame is joined back onto the samples, keeping file
-    order, the trim window applied as a mask, and every channel aggregated in one ``group_by``
-    on the integer id. Steps between kept samples come from fills and shifts along the file.
-    """
-    cur = pl.col("current")
-    t = pl.col("t")
-    has_marker = "tip_change" in samples.collect_schema().names()
-    arc_on = (
-        pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
-        .forward_fill().fill_null(False)
-    )
-    lf = samples.with_columns(arc_on.alias("_arc"))
-    if labelled:
-        lf = lf.filter(pl.col("_arc") & pl.col("seam").is_not_null())
-        keys = ["serial", "seam"]
-    else:
-        run = (pl.col("_arc") != pl.col("_arc").shift(1)).fill_null(True).cum_sum()
-        lf = lf.with_columns(run.alias("_run")).filter(pl.col("_arc"))
-        keys = ["_run"]
-    bounds = lf.group_by(keys).agg(
-        pl.col("part").drop_nulls().first().alias("part"),
-        pl.col("serial").drop_nulls().first().alias("_serial"),
-        pl.col("ts").min().alias("start"),
-        t.min().alias("start_s"),
-        t.max().alias("_t1"),
-        *([pl.col("tip_change").any()] if has_marker else []),
-    ).with_row_index("_id")
-    lf = lf.join(bounds.select(*keys, "_id", "start_s", "_t1"), on=keys, how="inner", nulls_equal=True,
-                 maintain_order="left")
-    k = (t >= pl.col("start_s") + arc.trim_start) & (t <= pl.col("_t1") - arc.trim_end)
-    lf = lf.with_columns(k.alias("_keep"))
-    kk = pl.col("_keep")
-    sid = pl.col("_id")
-    tk = pl.when(kk).then(t)
-    idk = pl.when(kk).then(sid)
-    prev_id = idk.shift(1).forward_fill()
-    step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
-    new_stretch = kk & (prev_id.is_null() | (prev_id != sid))
-
-    def ok(col: str) -> pl.Expr:
-        return kk & _valid(col)
-
-    volt = pl.col("voltage")
-    lf = lf.select(
-        "_id", "_keep", tk.alias("_tk"), step.alias("_step"), new_stretch.alias("_new"),
-        pl.when(ok("current")).then(cur).alias("_i"),
-        pl.when(ok("voltage")).then(volt).alias("_v"),
-        pl.when(ok("current") & ok("voltage")).then(cur * volt).alias("_p"),
-        pl.when(ok("wire_feed")).then(pl.col("wire_feed")).alias("_w"),
-        pl.when(ok("travel_speed")).then(pl.col("travel_speed")).alias("_s"),
-        (kk & ~_valid("current")).alias("_ib"),
-        (kk & ~_valid("voltage")).alias("_vb"),
-        (kk & ~_valid("wire_feed")).alias("_wb"),
-    )
-    sums = lf.group_by("_id").agg(
-        pl.col("_tk").min().alias("_tk_min"),
-        pl.col("_tk").max().alias("_tk_max"),
-        kk.sum().alias("n_samples"),
-        pl.len().alias("_n_all"),
-        *masked_means(),
-        pl.col("_ib").sum().alias("current_bad"),
-        pl.col("_vb").sum().alias("voltage_bad"),
-        pl.col("_wb").sum().alias("wire_feed_bad"),
-        pl.col("_step").max().alias("max_gap_s"),
-        pl.col("_step").min().alias("min_step_s"),
-        pl.col("_new").sum().alias("runs"),
-    )
-    agg = bounds.join(sums, on="_id", how="left").with_columns(
-        (pl.col("_t1") - pl.col("start_s")).alias("arc_time_s"),
-        (pl.col("_tk_max") - pl.col("_tk_min")).alias("used_time_s"),
-        (pl.col("_n_all") - pl.col("n_samples")).alias("n_trimmed"),
-        pl.col("_serial").alias("serial"),
-    )
-    if labelled:
-        agg = agg.with_columns((pl.col("serial").fill_null("") + "\u241f" + pl.col("seam")).alias("seam_key"))
-    else:
-        agg = agg.with_columns(pl.col("_run").cast(pl.String).alias("seam_key"))
-        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration)
-    agg = agg.sort("start_s")
-    if not labelled:
-        number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))
-        agg = agg.with_columns(("S" + number.cast(pl.String)).alias("seam"))
-    return agg.select(*AGGREGATE_COLUMNS, *(["tip_change"] if has_marker else []), "runs")
-
-
-def collect_seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool,
-                            engine: str = "auto") -> pl.DataFrame:
-    """Collected per-seam aggregates (columns of :data:`AGGREGATE_COLUMNS`), fast path first.
-
-    Runs :func:`run_aggregates`; when a labelled seam comes in more than one stretch (its label
-    recurs after another seam's samples), recomputes the file with :func:`seam_aggregates`, whose
-    trim window spans the whole seam. ``engine`` is passed to ``LazyFrame.collect``.
-    """
-    out = run_aggregates(samples, arc, labelled).collect(engine=engine)
-    if out.height and int(out["runs"].max()) > 1:
-        return seam_aggregates(samples, arc, labelled).collect(engine=engine)
-    return out.drop("runs")

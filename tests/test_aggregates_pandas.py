@@ -1,7 +1,8 @@
 """The per-seam aggregation against an independent pandas computation.
 
 Two engines are checked: the one-pass batch engine the scan uses (ingest.onepass, at several batch
-sizes so that seams straddle batch boundaries) and the whole-file lazy form (ingest.seams).
+sizes so that seams straddle batch boundaries) and the whole-file lazy window form (ingest.seams,
+the engine's fallback for a recurring label).
 
 Reference: pandas (a reference library) doing the same arithmetic the docstring of
 ingest.seams.seam_aggregates states — arc-on where current > threshold (a null current carries
@@ -22,7 +23,7 @@ import pytest
 
 from ingest.onepass import aggregate_samples
 from ingest.reader import scan_samples
-from ingest.seams import collect_seam_aggregates
+from ingest.seams import seam_aggregates
 from monitor.config import load_config
 from monitor.simulate import SeamPlan, simulate_log
 
@@ -114,7 +115,7 @@ def test_aggregates_equal_pandas(tmp_path, order, labelled, engine):
         chunk = {"1M": 1_000_000, "997": 997, "50": 50}[engine.split("-")[1]]
         got = aggregate_samples(samples, ARC, chunk_rows=chunk).aggregates.to_pandas()
     else:
-        got = collect_seam_aggregates(samples.frame, ARC, labelled=labelled, engine="streaming").to_pandas()
+        got = seam_aggregates(samples.frame, ARC, labelled=labelled).collect(engine="streaming").to_pandas()
     want = _pandas_aggregates(path, labelled)
     assert list(got["seam"]) == list(want["seam"])
     assert len(got) == len(set(order))
