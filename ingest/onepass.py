@@ -233,20 +233,13 @@ def _batches(samples: Samples, chunk_rows: int) -> Iterator[pl.DataFrame]:
         import pyarrow.parquet as pq
 
         meta = pq.ParquetFile(path).metadata
-        sizes = [meta.row_group(i).num_rows for i in range(meta.num_row_groups)]
-        off = 0
-        while off < sum(sizes):
-            n, acc = 0, 0
-            for i, rows in enumerate(sizes):
-                acc += rows
-                if acc > off:
-                    n = acc - off
-                    rest = sizes[i + 1:]
-                    while n < chunk_rows and rest:
-                        n += rest.pop(0)
-                    break
-            yield plan.source.slice(off, n).collect()
-            off += n
+        off = n = 0
+        for i in range(meta.num_row_groups):
+            n += meta.row_group(i).num_rows
+            if n >= chunk_rows or i == meta.num_row_groups - 1:
+                if n:
+                    yield plan.source.slice(off, n).collect()
+                off, n = off + n, 0
         return
     yield from plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True)
 
