@@ -76,6 +76,13 @@ def _changed(col: str, before: str | None, first_batch: bool) -> pl.Expr:
     return out | (pl.int_range(pl.len()) == 0) if first_batch else out
 
 
+def _own(s: pl.Series) -> pl.Series:
+    """A copy of a few strings picked out of a batch. A filtered string column still points into
+    the batch's whole text buffers (a CSV batch holds one per column); kept for the file's length,
+    those would grow memory with the file. O(values kept), a handful a seam."""
+    return pl.Series(s.name, s.to_list(), dtype=pl.String)
+
+
 class _Text:
     """Where each value of one text column starts along the file (small: one row a change)."""
 
@@ -85,7 +92,7 @@ class _Text:
 
     def add(self, pos: pl.Series, val: pl.Series) -> None:
         self.pos.append(pos)
-        self.val.append(val)
+        self.val.append(_own(val))
 
     def first_non_null(self, p0: np.ndarray, p1: np.ndarray) -> pl.Series:
         """Per run [p0, p1] (global row positions): the first non-null value that starts inside
@@ -371,8 +378,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                     new = new | chg.get_column("_c_serial")
                 keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
-                label_rows.append(pl.DataFrame([keys.filter(new), txt.get_column("seam").filter(new),
-                                                (txt.get_column("serial").filter(new) if "serial" in names
+                label_rows.append(pl.DataFrame([keys.filter(new), _own(txt.get_column("seam").filter(new)),
+                                                (_own(txt.get_column("serial").filter(new)) if "serial" in names
                                                  else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
             else:
                 arc_on = b.get_column("_arc")
