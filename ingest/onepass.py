@@ -76,6 +76,15 @@ def _changed(col: str, before: str | None, first_batch: bool) -> pl.Expr:
     return out | (pl.int_range(pl.len()) == 0) if first_batch else out
 
 
+def _run_keys(new: pl.Series, base: int) -> pl.Series:
+    """Run number of every row: ``base - 1`` plus the count of run starts (``new`` True) at or
+    before it. Built from the few start positions (the cumulative sum of a boolean column over a
+    batch costs ten times as much)."""
+    starts = new.arg_true().to_numpy()
+    lens = np.diff(np.concatenate(([0], starts, [len(new)])))
+    return pl.Series("_key", np.repeat(np.arange(base - 1, base + len(starts), dtype=np.int64), lens))
+
+
 def _own(s: pl.Series) -> pl.Series:
     """A copy of a few strings picked out of a batch. A filtered string column still points into
     the batch's whole text buffers (a CSV batch holds one per column); kept for the file's length,
@@ -376,7 +385,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 new = chg.get_column("_c_seam")
                 if "serial" in names:
                     new = new | chg.get_column("_c_serial")
-                keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+                keys = _run_keys(new, key_base)
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
                 label_rows.append(pl.DataFrame([keys.filter(new), _own(txt.get_column("seam").filter(new)),
                                                 (_own(txt.get_column("serial").filter(new)) if "serial" in names
@@ -385,7 +394,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 arc_on = b.get_column("_arc")
                 first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
                 new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
-                keys = (new.cast(pl.Int64).cum_sum() + (key_base - 1)).alias("_key")
+                keys = _run_keys(new, key_base)
                 in_run = arc_on
             key_base = int(keys[-1]) + 1
             last_arc = bool(b.get_column("_arc")[-1])
