@@ -139,19 +139,30 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
     """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
     t = pl.col("t")
     df = df.with_columns(pl.col("_key").set_sorted())
-    # group by the sorted run key: polars groups by slices; bounds broadcast back by repetition
-    bounds = df.group_by("_key", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"),
-                                                          pl.len().alias("_len"))
-    lens = bounds.get_column("_len").to_numpy()
+    tt = df.get_column("t")
+    tn = tt.to_numpy()
+    # time never goes backwards (a NaN or null compares false): a run's first and last rows hold
+    # its first and last time, and its kept samples are one contiguous block
+    monotonic = tt.null_count() == 0 and bool(np.all(tn[1:] >= tn[:-1]))
+    if monotonic:
+        key = df.get_column("_key").to_numpy()
+        first = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
+        lens = np.diff(np.append(first, len(key)))
+        bounds = pl.DataFrame({"_key": key[first], "start_s": tn[first], "_t1": tn[first + lens - 1]})
+    else:
+        # group by the sorted run key: polars groups by slices
+        got = df.group_by("_key", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"),
+                                                           pl.len().alias("_len"))
+        lens = got.get_column("_len").to_numpy()
+        bounds = got.select("_key", "start_s", "_t1")
+    # the bounds broadcast back by repetition
     t0 = pl.Series(np.repeat(bounds.get_column("start_s").to_numpy() + arc.trim_start, lens))
     t1 = pl.Series(np.repeat(bounds.get_column("_t1").to_numpy() - arc.trim_end, lens))
-    tt = df.get_column("t")
     df = df.with_columns(((tt >= t0) & (tt <= t1)).alias("_keep"))
     kk = pl.col("_keep")
     sid = pl.col("_key")
     tk = pl.when(kk).then(t)
-    if tt.null_count() == 0 and not tt.is_nan().any() and (tt.len() < 2 or tt.diff().min() >= 0):
-        # time never goes backwards here: a run's kept samples are one contiguous block
+    if monotonic:
         step = pl.when(kk & kk.shift(1) & (sid == sid.shift(1))).then(t - t.shift(1))
     else:
         prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
@@ -188,7 +199,7 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
         pl.col("_step").min().alias("min_step_s"),
         *([pl.col("tip_change").any()] if has_marker else []),
     )
-    return pl.concat([bounds.drop("_len"), out.drop("_key")], how="horizontal")
+    return pl.concat([bounds, out.drop("_key")], how="horizontal")
 
 
 def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None, arc: ArcSettings,
