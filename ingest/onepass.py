@@ -33,7 +33,7 @@ from pathlib import Path
 import numpy as np
 import polars as pl
 
-from ingest.reader import CHECK_COMBINE, IngestError, Samples, file_format, scan_samples
+from ingest.reader import CHECK_COMBINE, HARD_LIMITS, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
 from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
 
@@ -168,19 +168,18 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
         prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
         step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
 
-    def ok(col: str) -> pl.Expr:
-        return kk & _valid(col)
+    def kept(col: str) -> pl.Expr:
+        # a canonical channel with plausibility limits is null or finite (ingest.reader.HARD_LIMITS),
+        # so "valid" is just > 0 there (a null compares null: not kept)
+        c = pl.col(col)
+        return pl.when(kk & ((c > 0) if col in HARD_LIMITS else _valid(col))).then(c)
 
-    cur, volt = pl.col("current"), pl.col("voltage")
     df = df.select(
         "_key", "_pos", "_abs", *(["tip_change"] if has_marker else []),
         tk.alias("_tk"), step.alias("_step"),
-        pl.when(ok("current")).then(cur).alias("_i"),
-        pl.when(ok("voltage")).then(volt).alias("_v"),
-        pl.when(ok("current") & ok("voltage")).then(cur * volt).alias("_p"),
-        pl.when(ok("wire_feed")).then(pl.col("wire_feed")).alias("_w"),
-        pl.when(ok("travel_speed")).then(pl.col("travel_speed")).alias("_s"),
-    )
+        kept("current").alias("_i"), kept("voltage").alias("_v"),
+        kept("wire_feed").alias("_w"), kept("travel_speed").alias("_s"),
+    ).with_columns((pl.col("_i") * pl.col("_v")).alias("_p"))  # null unless both are kept
     i, tk = pl.col("_i"), pl.col("_tk")
     n_kept = tk.count()  # kept samples; a kept reading that is not valid is a bad one
     out = df.group_by("_key", maintain_order=True).agg(
