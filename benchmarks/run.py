@@ -102,6 +102,9 @@ def main() -> None:
     # The inputs are made in a child process: on Linux a child's peak RSS (ru_maxrss) starts from
     # its parent's at fork, so this process must stay small for the peaks below to mean anything.
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    # as installed from a wheel, modules are byte-compiled: let the source tree's be cached too, or
+    # every measured start would compile ctwd-monitor's modules again
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
     py = sys.executable
     made = subprocess.run([py, str(ROOT / "benchmarks" / "night.py"), str(a.work), "--seams", str(seams),
                            "--seam-s", str(seam_s), "--rate", str(a.rate), *(["--split", "8"] if a.dask else [])],
