@@ -154,7 +154,7 @@ def diagnose_csv(path: Path, spec: ExportSpec) -> str | None:
             n, v = bad["n"][0], bad["v"][0]
             if pl.Series([v]).str.contains(r"^[+-]?\d+,\d+$")[0]:
                 return f'decimal comma? column {ch.column} ({what}) holds text like "{v}" (line {n})'
-            return f'line {n}: column {ch.column} ({what}) holds "{v[:40]}", not a number'
+            return f'line {n}: column {ch.column} ({what}) holds {_show(v)}, not a number'
     if spec.time in names:
         j = names.index(spec.time)
         vals = body.select("n", pl.col("f").list.get(j, null_on_oob=True).str.strip_chars().alias("v"))
@@ -168,13 +168,17 @@ def diagnose_csv(path: Path, spec: ExportSpec) -> str | None:
             parsed = vals["v"].str.to_datetime(time_zone="UTC", time_unit="us", strict=False)
             bad = vals.filter(parsed.is_null() & vals["v"].is_not_null())
             if bad.height:
-                return f'line {bad["n"][0]}: time "{bad["v"][0][:40]}" is not a timestamp or a number of seconds'
+                return f'line {bad["n"][0]}: time {_show(bad["v"][0])} is not a timestamp or a number of seconds'
     return None
 
 
 def _show(text: str | None) -> str:
+    """A value quoted for a one-line reason: at most 40 characters, control characters escaped."""
     t = (text or "").strip()
-    return f'"{t[:40]}{"..." if len(t) > 40 else ""}"' if t else "(empty)"
+    if not t:
+        return "(empty)"
+    cut = t[:40].encode("unicode_escape").decode("ascii") if not t[:40].isprintable() else t[:40]
+    return f'"{cut}{"..." if len(t) > 40 else ""}"'
 
 
 def polars_reason(exc: BaseException) -> str:

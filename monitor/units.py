@@ -2,9 +2,16 @@
 
 from __future__ import annotations
 
+import json
+import os
 import re
 import sys
 from functools import lru_cache
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import pint
 
 
 def _import_pint():
@@ -21,9 +28,6 @@ def _import_pint():
             del sys.modules["dask"]
     return _pint
 
-
-pint = _import_pint()
-
 __all__ = ["UnitError", "registry", "to_si", "si_unit_of", "DIMENSIONS"]
 
 
@@ -36,16 +40,59 @@ class UnitError(ValueError):
 
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
-    """The one pint registry of the program, created lazily.
+    """The one pint registry of the program, created (and pint imported) on first use.
 
     Parsing pint's unit definitions costs about 0.4 s; pint's own on-disk cache of the parsed
     definitions (``cache_folder=":auto:"``, the user's cache directory) brings a start to ~0.05 s.
     Without a writable cache directory the registry is built the slow way.
     """
+    pint = _import_pint()
     try:
         return pint.UnitRegistry(cache_folder=":auto:")
     except (OSError, ImportError, ValueError, TypeError, AttributeError):
         return pint.UnitRegistry()
+
+
+def _memo_path() -> Path | None:
+    """Where pint's answers for this pint version are remembered (the user's cache directory)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        ver = version("pint")
+    except PackageNotFoundError:
+        return None
+    base = os.environ.get("XDG_CACHE_HOME") or (Path.home() / ".cache")
+    return Path(base) / "ctwd-monitor" / f"units-pint-{ver}.json"
+
+
+@lru_cache(maxsize=1)
+def _memo() -> dict[str, float]:
+    path = _memo_path()
+    try:
+        got = json.loads(path.read_text(encoding="utf-8")) if path else {}
+    except (OSError, ValueError):
+        return {}
+    return {k: float(v) for k, v in got.items() if isinstance(v, (int, float))} if isinstance(got, dict) else {}
+
+
+_MEMO_MAX = 1000  # unit strings remembered; a config has a few dozen
+
+
+def _remember(key: str, value: float) -> None:
+    memo = _memo()
+    if len(memo) >= _MEMO_MAX:
+        return
+    memo[key] = value
+    path = _memo_path()
+    if path is None:
+        return
+    try:  # best effort: a read-only home only costs the next start pint's import
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f"{path.name}.{os.getpid()}.tmp")
+        tmp.write_text(json.dumps(memo, sort_keys=True), encoding="utf-8")
+        os.replace(tmp, path)
+    except OSError:
+        pass
 
 
 #: Named dimensions the config uses, with the SI unit each is converted to.
@@ -116,6 +163,19 @@ def to_si(text: object, dimension: str) -> float:
         raise UnitError(f'"{text}" is not a {dimension}: a number then a unit is expected (e.g. {example})')
     if "," in text:
         raise UnitError(f'"{text}" is not a {dimension}: use a decimal point, not a comma (e.g. {example})')
+    # pint's answer for this string, remembered from an earlier run: importing pint and building
+    # its registry is most of a `ctwd` command's start-up; only successful conversions are kept
+    key = f"{target or '1'}\x1f{text.strip()}"  # the SI unit converted to, then the string
+    known = _memo().get(key)
+    if known is not None:
+        return known
+    value = _pint_to_si(text, dimension, target, example)
+    _remember(key, value)
+    return value
+
+
+def _pint_to_si(text: str, dimension: str, target: str, example: str) -> float:
+    pint = _import_pint()
     ureg = registry()
     try:
         q = ureg.Quantity(text.strip())

@@ -191,3 +191,17 @@ def test_page_lists_skipped_reasons_and_repairs(corpus_run):
             assert str(escape(r["error"])) in page, r["error"]
         if r["note"]:
             assert str(escape(r["note"])) in page, r["note"]
+
+
+def test_a_value_with_a_line_break_is_shown_escaped_in_a_one_line_reason(tmp_path, cfg):
+    """Text where a number was expected, holding a line break: the reason stays one line."""
+    frame = good_frame(np.random.default_rng(5), "TB7-0557")
+    bad = frame.with_columns(pl.col("voltage_v").cast(pl.String))
+    bad = bad.with_columns(pl.when(pl.int_range(pl.len()) == 5).then(pl.lit("0\n0")).otherwise(pl.col("voltage_v"))
+                           .alias("voltage_v"))
+    p = tmp_path / "linebreak.parquet"
+    bad.write_parquet(p)
+    df, rec = scan_file(p, cfg)
+    assert df is None and rec.status == "skipped"
+    _one_line(rec.error)
+    assert '"0\\n0"' in rec.error and "voltage" in rec.error
