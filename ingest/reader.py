@@ -365,13 +365,14 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
             found = diagnose_csv(path, spec) if file_format(path) == "csv" else None
             raise IngestError(found or f'column "{ch.column}" ({alias}) holds {dt}, not numbers; '
                               "decimal comma or wrong separator?")
-        return pl.col(ch.column).cast(pl.Float64) * ch.scale
+        x = pl.col(ch.column).cast(pl.Float64)
+        return x * ch.scale if ch.scale != 1.0 else x  # a log already in SI: no multiply per sample
 
     def chan(ch, alias: str) -> pl.Expr:
         x = raw(ch, alias)
         lim = HARD_LIMITS.get(alias)
         if lim is not None:
-            x = pl.when(x.is_between(*lim) | x.is_null()).then(x).otherwise(None)
+            x = pl.when(x.is_between(*lim)).then(x)  # null stays null; NaN and out-of-range become null
         return x.alias(alias)
 
     exprs = [ts.alias("ts"), chan(spec.current, "current"), chan(spec.voltage, "voltage"), chan(spec.wire_feed, "wire_feed")]
