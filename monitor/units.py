@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
@@ -86,13 +87,14 @@ def _remember(key: str, value: float) -> None:
     path = _memo_path()
     if path is None:
         return
+    tmp = path.with_name(f"{path.name}.{os.getpid()}.tmp")
     try:  # best effort: a read-only home only costs the next start pint's import
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f"{path.name}.{os.getpid()}.tmp")
         tmp.write_text(json.dumps(memo, sort_keys=True), encoding="utf-8")
-        os.replace(tmp, path)
+        os.replace(tmp, path)  # atomic: parallel workers never see half a file
     except OSError:
-        pass
+        with contextlib.suppress(OSError):
+            tmp.unlink(missing_ok=True)
 
 
 #: Named dimensions the config uses, with the SI unit each is converted to.
