@@ -3,9 +3,9 @@
 The unit of work is one file (:func:`monitor.pipeline.scan_file`): it reads the file lazily,
 returns one small frame a seam and a :class:`~monitor.pipeline.FileRecord`. Only those small
 results travel back; the samples never leave the worker that read them. Results are returned in
-the order of the input list, so a parallel scan gives the same frame as a serial one, floats to 1e-12
-relative: polars sums in threads, so the last bit can vary even between two serial runs (each file
-is computed by the same code on the same bytes; nothing is summed across files).
+the order of the input list, so a parallel scan gives the same frame as a serial one, bit for bit:
+each file is computed by the same code on the same bytes, each seam's sums run over its own rows
+in file order (``ingest.onepass``), and nothing is summed across files (tests/test_scale.py).
 
 Dask is an optional extra (``pip install 'ctwd-monitor[cluster]'``). A plant runs a scheduler on
 one host and workers near the log shares; files are named by paths the workers can read (a
