@@ -135,26 +135,105 @@ def _masked_means() -> list[pl.Expr]:
     ]
 
 
+def _valid_kept(col: str) -> pl.Expr:
+    """``col`` where its reading is valid, else null. A canonical channel with plausibility limits
+    is null or finite (ingest.reader.HARD_LIMITS), so "valid" is just > 0 there (a null compares
+    null: not kept)."""
+    c = pl.col(col)
+    return pl.when((c > 0) if col in HARD_LIMITS else _valid(col)).then(c)
+
+
+def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
+    """:func:`_reduce_runs` where time never goes backwards in ``df`` (``tn`` its ``t``).
+
+    A run's first and last rows then hold its first and last time, and its kept samples (inside
+    the trim window) are one contiguous block, found by binary search. Everything but the means
+    comes from those positions (numpy, exact: first/last values, extremes of differences, counts);
+    the means are one group-by over the run's three blocks (before, inside, after the window),
+    which polars groups by slices. Same values as the general form, floats to rounding.
+    """
+    key = df.get_column("_key").to_numpy()
+    n = len(key)
+    first = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
+    end = np.append(first[1:], n)  # one past each run's last row
+    start_s, t1 = tn[first], tn[end - 1]
+    # the window [start + trim_start, end - trim_end], as a block of rows of each run
+    a = np.clip(np.searchsorted(tn, start_s + arc.trim_start, side="left"), first, end)
+    b = np.clip(np.searchsorted(tn, t1 - arc.trim_end, side="right"), a, end)
+    runs = len(first)
+    blocks = np.repeat(np.arange(3 * runs, dtype=np.int64), np.stack([a - first, b - a, end - b], axis=1).ravel())
+    chans = df.select(pl.Series("_g", blocks).set_sorted(),
+                      _valid_kept("current").alias("_i"), _valid_kept("voltage").alias("_v"),
+                      _valid_kept("wire_feed").alias("_w"), _valid_kept("travel_speed").alias("_s"))
+    chans = chans.with_columns((pl.col("_i") * pl.col("_v")).alias("_p"))  # null unless both are kept
+    means = (chans.group_by("_g", maintain_order=True)
+             .agg(*_masked_means(), *(pl.col(c).count().alias(f"_n{c}") for c in ("_i", "_v", "_w")))
+             .filter(pl.col("_g") % 3 == 1)
+             .select((pl.col("_g") // 3).alias("_r"), pl.exclude("_g")))
+    n_kept = b - a
+    # steps between kept samples: t[j] - t[j-1] for j in (a, b), i.e. the differences d[a:b-1]
+    d = np.append(np.diff(tn), 0.0)
+    has_step = n_kept >= 2
+    if has_step.any():
+        idx = np.stack([a[has_step], b[has_step] - 1], axis=1).ravel()
+        gap_max = np.full(runs, np.nan)
+        gap_min = np.full(runs, np.nan)
+        gap_max[has_step] = np.maximum.reduceat(d, idx)[::2]
+        gap_min[has_step] = np.minimum.reduceat(d, idx)[::2]
+    else:
+        gap_max = gap_min = np.full(runs, np.nan)
+    nonempty = n_kept > 0
+    last_kept = np.maximum(b - 1, a)
+    pos = df.get_column("_pos").to_numpy()
+    abs_t = df.get_column("_abs")
+    cols = {
+        "_key": key[first], "start_s": start_s, "_t1": t1,
+        "_p0": pos[first], "_p1": pos[end - 1],
+        "_abs_min": pl.Series(np.minimum.reduceat(abs_t.to_numpy(), first), dtype=abs_t.dtype),
+        "_tk_min": pl.Series(np.where(nonempty, tn[np.minimum(a, n - 1)], np.nan), nan_to_null=True),
+        "_tk_max": pl.Series(np.where(nonempty, tn[np.minimum(last_kept, n - 1)], np.nan), nan_to_null=True),
+        "n_samples": pl.Series(n_kept, dtype=pl.UInt32),
+        "_n_all": pl.Series(end - first, dtype=pl.UInt32),
+    }
+    out = pl.DataFrame(cols).with_row_index("_r").join(means.with_columns(pl.col("_r").cast(pl.UInt32)),
+                                                       on="_r", how="left", maintain_order="left")
+    ns = pl.col("n_samples")
+    out = out.with_columns(
+        *((ns - pl.col(f"_n{c}").fill_null(0)).alias(f"{name}_bad")
+          for c, name in (("_i", "current"), ("_v", "voltage"), ("_w", "wire_feed"))),
+        pl.Series("max_gap_s", gap_max, nan_to_null=True), pl.Series("min_step_s", gap_min, nan_to_null=True),
+    )
+    if has_marker:
+        marks = df.get_column("tip_change").to_numpy()
+        out = out.with_columns(pl.Series("tip_change", np.logical_or.reduceat(marks, first)))
+    return out.select("_key", "start_s", "_t1", "_p0", "_p1", "_abs_min", "_tk_min", "_tk_max", "n_samples", "_n_all",
+                      "current_mean", "current_sq_mean", "voltage_mean", "power_mean", "wire_feed_mean",
+                      "travel_speed_mean", "current_bad", "voltage_bad", "wire_feed_bad", "max_gap_s", "min_step_s",
+                      *(["tip_change"] if has_marker else []))
+
+
 def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
     """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
-    t = pl.col("t")
-    df = df.with_columns(pl.col("_key").set_sorted())
     tt = df.get_column("t")
     tn = tt.to_numpy()
-    # time never goes backwards (a NaN or null compares false): a run's first and last rows hold
-    # its first and last time, and its kept samples are one contiguous block
-    monotonic = tt.null_count() == 0 and bool(np.all(tn[1:] >= tn[:-1]))
-    if monotonic:
-        key = df.get_column("_key").to_numpy()
-        first = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
-        lens = np.diff(np.append(first, len(key)))
-        bounds = pl.DataFrame({"_key": key[first], "start_s": tn[first], "_t1": tn[first + lens - 1]})
-    else:
-        # group by the sorted run key: polars groups by slices
-        got = df.group_by("_key", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"),
-                                                           pl.len().alias("_len"))
-        lens = got.get_column("_len").to_numpy()
-        bounds = got.select("_key", "start_s", "_t1")
+    # time never goes backwards (a NaN or null compares false)
+    if tt.null_count() == 0 and bool(np.all(tn[1:] >= tn[:-1])):
+        return _reduce_sorted_runs(df, tn, arc, has_marker)
+    return _reduce_any_runs(df, arc, has_marker)
+
+
+def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
+    """:func:`_reduce_runs` for any order of time (the general form, all in polars)."""
+    t = pl.col("t")
+    tt = df.get_column("t")
+    # time goes backwards somewhere (the seam is reported as such downstream): the bounds are
+    # extremes, and a step is measured from the previous kept sample of the same run
+    df = df.with_columns(pl.col("_key").set_sorted())
+    # group by the sorted run key: polars groups by slices
+    got = df.group_by("_key", maintain_order=True).agg(t.min().alias("start_s"), t.max().alias("_t1"),
+                                                       pl.len().alias("_len"))
+    lens = got.get_column("_len").to_numpy()
+    bounds = got.select("_key", "start_s", "_t1")
     # the bounds broadcast back by repetition
     t0 = pl.Series(np.repeat(bounds.get_column("start_s").to_numpy() + arc.trim_start, lens))
     t1 = pl.Series(np.repeat(bounds.get_column("_t1").to_numpy() - arc.trim_end, lens))
@@ -162,17 +241,11 @@ def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.Dat
     kk = pl.col("_keep")
     sid = pl.col("_key")
     tk = pl.when(kk).then(t)
-    if monotonic:
-        step = pl.when(kk & kk.shift(1) & (sid == sid.shift(1))).then(t - t.shift(1))
-    else:
-        prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
-        step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
+    prev_id = pl.when(kk).then(sid).shift(1).forward_fill()
+    step = pl.when(kk & (prev_id == sid)).then(t - tk.shift(1).forward_fill())
 
     def kept(col: str) -> pl.Expr:
-        # a canonical channel with plausibility limits is null or finite (ingest.reader.HARD_LIMITS),
-        # so "valid" is just > 0 there (a null compares null: not kept)
-        c = pl.col(col)
-        return pl.when(kk & ((c > 0) if col in HARD_LIMITS else _valid(col))).then(c)
+        return pl.when(kk).then(_valid_kept(col))
 
     df = df.select(
         "_key", "_pos", "_abs", *(["tip_change"] if has_marker else []),

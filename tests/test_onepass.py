@@ -141,3 +141,51 @@ def test_same_bits_whatever_the_thread_count(tmp_path):
     assert _frame_bytes(here) == _frame_bytes(aggregate_file(path, SPEC, ARC).aggregates)
     assert len(seen) == 1
 
+
+
+@st.composite
+def _sorted_runs(draw):
+    """A batch of complete runs as the engine hands them to the reduction: time never goes
+    backwards (repeats allowed), runs of any length (shorter than the trims too), channels with
+    nulls, zeros and negative readings, travel speed with NaN and infinities."""
+    lens = draw(st.lists(st.integers(1, 40), min_size=1, max_size=6))
+    n = sum(lens)
+    steps = draw(st.lists(st.sampled_from([0, 1, 1, 1, 2, 7, 300]), min_size=n, max_size=n))
+    abs_ms = 1_700_000_000_000 + np.cumsum(steps).astype(np.int64)
+    vals = st.one_of(st.none(), st.sampled_from([0.0, -5.0]), st.floats(0.5, 400.0))
+
+    def chan(extra=()):
+        return draw(st.lists(st.one_of(vals, *extra), min_size=n, max_size=n))
+
+    return pl.DataFrame({
+        "t": ((abs_ms - abs_ms[0]) * 1000).astype(np.float64) / 1e6,
+        "_abs": abs_ms,
+        "current": pl.Series(chan(), dtype=pl.Float64),
+        "voltage": pl.Series(chan(), dtype=pl.Float64),
+        "wire_feed": pl.Series(chan(), dtype=pl.Float64),
+        "travel_speed": pl.Series(chan((st.sampled_from([float("nan"), float("inf")]),)), dtype=pl.Float64),
+        "_pos": np.arange(100, 100 + n, dtype=np.int64),
+        "tip_change": draw(st.lists(st.booleans(), min_size=n, max_size=n)),
+        "_key": np.repeat(np.arange(5, 5 + len(lens), dtype=np.int64), lens),
+    })
+
+
+@settings(max_examples=200, deadline=None)
+@given(df=_sorted_runs(), trims=st.sampled_from([(0.5, 0.3), (0.0, 0.0), (0.004, 0.002), (0.01, 0.0)]))
+def test_sorted_time_reduction_equals_the_general_form(df, trims):
+    # The reduction used when time never goes backwards (positions, binary search, numpy
+    # extremes) against the general one written in polars expressions: the same counts, bounds,
+    # steps and flags exactly, and means to rounding.
+    from ingest.onepass import _reduce_any_runs, _reduce_sorted_runs
+    from ingest.schema import ArcSettings
+
+    arc = ArcSettings(trim_start=trims[0], trim_end=trims[1])
+    got = _reduce_sorted_runs(df, df["t"].to_numpy(), arc, True)
+    want = _reduce_any_runs(df, arc, True)
+    assert got.schema == want.schema
+    means = [c for c in want.columns if c.endswith("_mean")]
+    assert got.drop(means).equals(want.drop(means), null_equal=True)
+    for c in means:
+        g, w = got[c].to_numpy(), want[c].to_numpy()
+        np.testing.assert_allclose(g, w, rtol=1e-13, atol=0, equal_nan=True)
+        assert (got[c].is_null() == want[c].is_null()).all()
