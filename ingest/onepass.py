@@ -319,12 +319,14 @@ def _combine(acc: dict, got: dict) -> None:
 
 
 def _batches(samples: Samples, chunk_rows: int) -> Iterator[pl.DataFrame]:
-    """The export's rows in file order, a bounded number at a time.
+    """The export's rows in file order, a bounded number at a time, read ahead of the consumer.
 
-    Parquet: windows of whole row groups (at least ``chunk_rows`` rows each, or one row group),
-    each read by polars' multi-threaded reader when asked for, so memory does not grow with the
-    file whatever the consumer's speed. CSV: polars' streaming reader in chunks of ``chunk_rows``
-    (parsing text is slower than the aggregation that consumes it, so little is buffered).
+    Parquet: windows of whole row groups (at least ``chunk_rows`` rows each, or one row group).
+    polars decodes one window on one thread, so two windows are decoded at once, in two threads
+    (polars releases the GIL), and handed over in file order; at most :data:`READ_AHEAD` windows
+    are read ahead, so memory does not grow with the file whatever the consumer's speed. CSV:
+    polars' streaming reader in chunks of ``chunk_rows``, one batch read ahead (parsing text is
+    slower than the aggregation that consumes it, so little is buffered).
     """
     plan = samples.plan
     path = samples.path
@@ -332,15 +334,46 @@ def _batches(samples: Samples, chunk_rows: int) -> Iterator[pl.DataFrame]:
         import pyarrow.parquet as pq
 
         meta = pq.ParquetFile(path).metadata
+        windows: list[tuple[int, int]] = []
         off = n = 0
         for i in range(meta.num_row_groups):
             n += meta.row_group(i).num_rows
             if n >= chunk_rows or i == meta.num_row_groups - 1:
                 if n:
-                    yield plan.source.slice(off, n).collect()
+                    windows.append((off, n))
                 off, n = off + n, 0
+        source = plan.source
+        yield from _read_ahead([lambda w=w: source.slice(*w).collect() for w in windows])
         return
-    yield from plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True)
+    yield from _prefetch(plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True))
+
+
+#: Parquet windows decoded at once, and read ahead of the one being aggregated.
+READ_AHEAD = 2
+
+
+def _read_ahead(loads: list, workers: int = READ_AHEAD) -> Iterator[pl.DataFrame]:
+    """``load()`` of each of ``loads`` in order, ``workers`` of them running at once in threads; an
+    error is raised here, in order. Loads not started when the consumer stops are cancelled."""
+    pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="ctwd-read")
+    pending: list[Future] = []
+    todo = iter(loads)
+    try:
+        for load in todo:
+            pending.append(pool.submit(load))
+            if len(pending) >= workers:
+                break
+        while pending:
+            got = pending.pop(0).result()
+            for load in todo:
+                pending.append(pool.submit(load))
+                break
+            yield got
+            del got
+    finally:
+        for f in pending:
+            f.cancel()
+        pool.shutdown(wait=False, cancel_futures=True)
 
 
 def _prefetch(batches: Iterator[pl.DataFrame], depth: int = 1) -> Iterator[pl.DataFrame]:
@@ -429,7 +462,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     # channel counts from the columns themselves when every channel is numeric in the export
     fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
     try:
-        for raw in _prefetch(_batches(samples, chunk_rows)):
+        for raw in _batches(samples, chunk_rows):
             n = raw.height
             if n == 0:
                 continue

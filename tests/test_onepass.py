@@ -189,3 +189,33 @@ def test_sorted_time_reduction_equals_the_general_form(df, trims):
         g, w = got[c].to_numpy(), want[c].to_numpy()
         np.testing.assert_allclose(g, w, rtol=1e-13, atol=0, equal_nan=True)
         assert (got[c].is_null() == want[c].is_null()).all()
+
+
+def test_read_ahead_keeps_file_order_raises_in_order_and_stops():
+    import time
+
+    from ingest.onepass import _read_ahead
+
+    started = []
+
+    def load(i, wait):
+        def run():
+            started.append(i)
+            time.sleep(wait)
+            if i == 4:
+                raise OSError("cut file")
+            return i
+        return run
+
+    # the first window is the slowest: order is the file's, not the finishing order
+    it = _read_ahead([load(i, w) for i, w in enumerate([0.2, 0.0, 0.05, 0.0, 0.0, 0.0])])
+    assert [next(it) for _ in range(4)] == [0, 1, 2, 3]
+    with pytest.raises(OSError, match="cut file"):
+        next(it)
+    # a consumer that stops early: loads not yet started never start
+    started.clear()
+    it = _read_ahead([load(i, 0.0) for i in range(10, 20)], workers=2)
+    assert next(it) == 10
+    it.close()
+    time.sleep(0.1)
+    assert len(started) <= 3
