@@ -20,6 +20,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import polars as pl  # noqa: E402
+from matplotlib.patches import Rectangle  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 __all__ = ["render_page", "ctwd_plot_svg", "penetration_plot_svg", "trace_plot_svgs", "load_history",
@@ -202,10 +203,17 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
         return items, left_out
     fig, axes = plt.subplots(3, 1, figsize=(7.6, 3.4), sharex=True)
     fig.subplots_adjust(left=0.09, right=0.985, top=0.93, bottom=0.12, hspace=0.1)  # fixed: tight_layout per trace is slow
-    # One figure for every trace: the axes, ticks and lines stay, only the data and shading change.
-    lines = []
+    # One figure for every trace: axes, ticks and artists are made once; each trace only moves
+    # them (new artists per trace cost more than drawing them).
+    lines, bands, bads, marks, spans = [], [], [], [], []
     for ax, (_ch, label, _scale, ls) in zip(axes, _TRACE_AXES):
+        spans.append([ax.add_artist(Rectangle((0.0, 0.0), 0.0, 1.0, transform=ax.get_xaxis_transform(),
+                                              facecolor="0.85", edgecolor="0.4", hatch="////", lw=0, zorder=0))
+                      for _ in range(2)])  # the trimmed start and end of the seam
+        bands.append(ax.fill_between([0.0, 0.0], [0.0, 0.0], [0.0, 0.0], color="0.75", lw=0, zorder=1))
         lines.append(ax.plot([], [], color="black", lw=0.8, ls=ls, zorder=2)[0])
+        marks.append([ax.axvline(0.0, color="0.3", lw=0.6, ls=":") for _ in range(2)])  # arc start and end
+        bads.append(ax.plot([], [], ls="none", marker="|", ms=6, color="#9c1c1c", zorder=3)[0])
         ax.set_ylabel(label)
         ax.yaxis.set_major_locator(MaxNLocator(3))  # few ticks: axis drawing is most of a trace's cost
         ax.xaxis.set_major_locator(MaxNLocator(5))
@@ -214,7 +222,6 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
         ax.yaxis.set_label_coords(-0.075, 0.5)
     axes[-1].set_xlabel("time from arc start [s]")
     axes[-1].xaxis.set_label_coords(0.5, -0.32)
-    transient: list[Any] = []
     # one read a source file for all its flagged seams (a long file is scanned once, not per seam)
     pre: dict[int, Any] = {}
     if cfg is not None:
@@ -243,23 +250,21 @@ def trace_plot_svgs(flagged: pl.DataFrame, cfg: Any, max_traces: int = MAX_TRACE
             if tr is None:
                 item["note"] = "trace not drawn: no samples in the seam's window (file changed since the scan?)"
                 continue
-            for a in transient:
-                a.remove()
-            transient.clear()
             inside = (tr.t >= 0) & (tr.t <= tr.arc_time_s)
-            for ax, line, (ch, _label, scale, _ls) in zip(axes, lines, _TRACE_AXES):
-                for a, b in tr.trimmed:
-                    transient.append(ax.axvspan(a, b, facecolor="0.85", edgecolor="0.4", hatch="////", lw=0, zorder=0))
-                transient.append(ax.axvline(0.0, color="0.3", lw=0.6, ls=":"))
-                transient.append(ax.axvline(tr.arc_time_s, color="0.3", lw=0.6, ls=":"))
+            for k, (ax, (ch, _label, scale, _ls)) in enumerate(zip(axes, _TRACE_AXES)):
+                for span, window in zip(spans[k], (*tr.trimmed, None, None)):
+                    span.set_visible(window is not None)
+                    if window is not None:
+                        span.set_x(window[0])
+                        span.set_width(window[1] - window[0])
+                for mark, at in zip(marks[k], (0.0, tr.arc_time_s)):
+                    mark.set_xdata([at, at])
+                bands[k].set_visible(tr.decimated)
                 if tr.decimated:
-                    transient.append(ax.fill_between(tr.t, tr.lo[ch] * scale, tr.hi[ch] * scale, color="0.75", lw=0,
-                                                     zorder=1))
-                line.set_data(tr.t, tr.mean[ch] * scale)
+                    bands[k].set_data(tr.t, tr.lo[ch] * scale, tr.hi[ch] * scale)
+                lines[k].set_data(tr.t, tr.mean[ch] * scale)
                 bad = (~np.isfinite(tr.mean[ch]) | (tr.mean[ch] <= 0)) & inside
-                if np.any(bad):
-                    transient.extend(ax.plot(tr.t[bad], np.zeros(int(np.sum(bad))), ls="none", marker="|", ms=6,
-                                             color="#9c1c1c", zorder=3))
+                bads[k].set_data(tr.t[bad], np.zeros(int(np.sum(bad))))
                 ax.relim()
                 ax.autoscale_view()
             item["svg"] = _svg(fig, close=False)
