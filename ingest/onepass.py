@@ -454,7 +454,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     carry: pl.DataFrame | None = None
     last_arc = False
     last_text: dict[str, str | None] = {}
-    canonical = None
+    origin, have_origin = None, False
     prev_time = None
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
@@ -466,8 +466,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             n = raw.height
             if n == 0:
                 continue
-            if canonical is None:
-                canonical = plan.canonical(raw.head(1).select(plan.origin).item())  # parse one value, not the batch
+            if not have_origin:
+                origin, have_origin = raw.head(1).select(plan.origin).item(), True  # parse one value, not the batch
             got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
             first_time = raw.get_column(time_col)[0]
             if prev_time is not None and first_time is not None and first_time == prev_time:
@@ -477,7 +477,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             txt = raw.select(*plan.text.values())
             chg = txt.select(marks) if names else None
             pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
-            b = raw.select(*canonical, pos)
+            b = plan.canonical(raw, origin, pos)
             if fast_checks:
                 # counts from the columns themselves: a canonical channel is null where the export's is
                 # null, NaN, or outside the plausibility limits (ingest.reader.HARD_LIMITS)

@@ -261,14 +261,15 @@ class BatchPlan:
 
     Used by :func:`ingest.onepass.aggregate_file`, which streams ``source`` (the export's own
     columns, lazily, in file order) in batches: ``origin`` (one value) is evaluated on the first
-    batch, ``canonical(origin)`` gives the numeric canonical columns of every batch (``t``, ``_abs``
-    the time as stored, channels, ``tip_change`` when mapped), ``text`` the label columns, ``checks`` one row of
+    batch, ``canonical(batch, origin)`` gives the numeric canonical columns of every batch (``t``,
+    ``_abs`` the time as stored, channels, ``tip_change`` when mapped), ``text`` the label columns, ``checks`` one row of
     per-batch counts (combined by :data:`CHECK_COMBINE`; ``seam_labels`` is left to the caller).
     """
 
     source: pl.LazyFrame
     origin: pl.Expr
-    canonical: Callable[[object], list[pl.Expr]]
+    #: ``canonical(batch, origin, *extra)``: the batch's canonical columns and ``extra``
+    canonical: Callable[..., pl.DataFrame]
     #: the text columns the export has, among "seam", "part", "serial" (cast to String)
     text: dict[str, pl.Expr]
     checks: tuple[pl.Expr, ...]
@@ -436,12 +437,15 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         def to_ts(v: pl.Expr) -> pl.Expr:
             return v.cast(pl.Datetime("us", "UTC"))
 
-    def canonical(origin) -> list[pl.Expr]:
+    def canonical(raw: pl.DataFrame, origin, *extra: pl.Expr) -> pl.DataFrame:
         o = pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)
+        # the stored time once (text is parsed once a batch), then t from it
+        b = raw.select(batch_abs.alias("_abs"), *exprs[1:], *extra)
+        a = pl.col("_abs")
         # exactly the whole-file form's float: microseconds since the first sample / 1e6
-        us = (batch_abs - o) * 1000 if per_s == 1e3 else batch_abs - o
-        t = (batch_abs - o) if per_s is None else us.cast(pl.Float64) / 1e6
-        return [t.alias("t"), batch_abs.alias("_abs"), *exprs[1:]]
+        us = (a - o) * 1000 if per_s == 1e3 else a - o
+        t = (a - o) if per_s is None else us.cast(pl.Float64) / 1e6
+        return b.with_columns(t.alias("t"))
 
     channels = tuple((alias, ch.column, schema[ch.column].is_numeric())
                      for ch, alias in ((spec.current, "current"), (spec.voltage, "voltage"),

@@ -170,8 +170,8 @@ def _row_groups_read(samples, windows: list[tuple[float, float]], inside: pl.Exp
             else:
                 keep.append((off, n))
         off += n
-    cols = [*plan.canonical(origin), *plan.text.values()]
-    frames = [plan.source.slice(a, n).collect().select(cols).filter(inside) for a, n in keep]
+    frames = [plan.canonical(plan.source.slice(a, n).collect(), origin, *plan.text.values()).filter(inside)
+              for a, n in keep]
     if not frames:
         return pl.DataFrame(schema=samples.frame.collect_schema())
     got = pl.concat(frames)
