@@ -143,8 +143,10 @@ def _valid_kept(col: str) -> pl.Expr:
     return pl.when((c > 0) if col in HARD_LIMITS else _valid(col)).then(c)
 
 
-def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
-    """:func:`_reduce_runs` where time never goes backwards in ``df`` (``tn`` its ``t``).
+def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: ArcSettings,
+                        has_marker: bool) -> pl.DataFrame:
+    """:func:`_reduce_runs` where time never goes backwards in ``df``: ``tn`` its ``t``, ``d`` the
+    differences ``tn[j + 1] - tn[j]`` (one longer, the last unused).
 
     A run's first and last rows then hold its first and last time, and its kept samples (inside
     the trim window) are one contiguous block, found by binary search. Everything but the means
@@ -161,7 +163,7 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, arc: ArcSettings, has_
     a = np.clip(np.searchsorted(tn, start_s + arc.trim_start, side="left"), first, end)
     b = np.clip(np.searchsorted(tn, t1 - arc.trim_end, side="right"), a, end)
     runs = len(first)
-    blocks = np.repeat(np.arange(3 * runs, dtype=np.int64), np.stack([a - first, b - a, end - b], axis=1).ravel())
+    blocks = np.repeat(np.arange(3 * runs, dtype=np.int32), np.stack([a - first, b - a, end - b], axis=1).ravel())
     chans = df.select(pl.Series("_g", blocks).set_sorted(),
                       _valid_kept("current").alias("_i"), _valid_kept("voltage").alias("_v"),
                       _valid_kept("wire_feed").alias("_w"), _valid_kept("travel_speed").alias("_s"))
@@ -172,7 +174,6 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, arc: ArcSettings, has_
              .select((pl.col("_g") // 3).alias("_r"), pl.exclude("_g")))
     n_kept = b - a
     # steps between kept samples: t[j] - t[j-1] for j in (a, b), i.e. the differences d[a:b-1]
-    d = np.append(np.diff(tn), 0.0)
     has_step = n_kept >= 2
     if has_step.any():
         idx = np.stack([a[has_step], b[has_step] - 1], axis=1).ravel()
@@ -215,10 +216,14 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, arc: ArcSettings, has_
 def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
     """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
     tt = df.get_column("t")
-    tn = tt.to_numpy()
-    # time never goes backwards (a NaN or null compares false)
-    if tt.null_count() == 0 and bool(np.all(tn[1:] >= tn[:-1])):
-        return _reduce_sorted_runs(df, tn, arc, has_marker)
+    if tt.null_count() == 0:
+        tn = tt.to_numpy()
+        d = np.empty(len(tn))
+        np.subtract(tn[1:], tn[:-1], out=d[:-1])
+        d[-1:] = 0.0
+        # time never goes backwards (a NaN compares false)
+        if bool(np.all(d >= 0)):
+            return _reduce_sorted_runs(df, tn, d, arc, has_marker)
     return _reduce_any_runs(df, arc, has_marker)
 
 
@@ -469,6 +474,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             if not have_origin:
                 origin, have_origin = raw.head(1).select(plan.origin).item(), True  # parse one value, not the batch
             got = raw.select(*(plan.light_checks if fast_checks else plan.checks)).row(0, named=True)
+            got["tz_offsets"] = plan.tz_offsets(raw) if plan.tz_offsets is not None else []
             first_time = raw.get_column(time_col)[0]
             if prev_time is not None and first_time is not None and first_time == prev_time:
                 got["dup_t"] = (got.get("dup_t") or 0) + 1

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -274,13 +275,44 @@ class BatchPlan:
     text: dict[str, pl.Expr]
     checks: tuple[pl.Expr, ...]
     time_column: str
-    #: ``rows``, ``dup_t``, ``tz_offsets`` only: the channel counts then come from the columns
-    #: (null counts, NaN counts, maxima), valid when every channel is numeric in the export
+    #: ``rows`` and ``dup_t`` only: the channel counts then come from the columns (null counts,
+    #: NaN counts, maxima), valid when every channel is numeric in the export
     light_checks: tuple[pl.Expr, ...] = ()
     #: (alias, export column, numeric?) of current, voltage, wire feed
     channels: tuple[tuple[str, str, bool], ...] = ()
     #: an aggregate of the ``_abs`` column (min per seam) to a UTC timestamp (us)
     to_ts: Callable[[pl.Expr], pl.Expr] | None = None
+    #: the distinct UTC offsets a batch's text timestamps carry (None: the time is not text)
+    tz_offsets: Callable[[pl.DataFrame], list[str]] | None = None
+
+
+_OFFSET = r"(Z|[+-]\d\d:?\d\d)$"  # "Z", "+01:00", "-0500" at the end of an ISO-8601 timestamp
+
+
+def _offsets_of(column: str) -> Callable[[pl.DataFrame], list[str]]:
+    """The distinct UTC offsets (sorted) the text timestamps in ``column`` of a batch carry.
+
+    The usual batches are answered by one string test over the rows: every value ends with the
+    first value's offset, or no value has a sign where an offset's would be (no offset at all).
+    Any other batch has the regex run on its distinct last-6-character endings (an offset is at
+    most 6 characters), not on every row.
+    """
+    col = pl.col(column)
+    slow = col.str.slice(-6).unique().str.extract(_OFFSET, 1).drop_nulls().unique().sort()
+    signs = ["+", "-"]
+    no_offset = ~(col.str.ends_with("Z") | col.str.slice(-6, 1).is_in(signs) | col.str.slice(-5, 1).is_in(signs)).any()
+
+    def offsets(batch: pl.DataFrame) -> list[str]:
+        s = batch.get_column(column)
+        head = s.head(64).drop_nulls()
+        first = re.search(_OFFSET, head[0][-6:]) if head.len() else None
+        if first is not None and bool(s.str.ends_with(first.group(1)).all()):
+            return [first.group(1)]
+        if first is None and head.len() and bool(batch.select(no_offset).item()):
+            return []
+        return batch.select(slow).to_series().to_list()
+
+    return offsets
 
 
 #: The file-level checks and how per-batch values combine into the file's ("sum", "max", or "union"
@@ -405,13 +437,7 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
                    x.filter(ok).max().alias(f"{alias}_max")]
     # repeated timestamps compared as logged (no second parse of the time column)
     checks.append((pl.col(spec.time) == pl.col(spec.time).shift(1)).sum().alias("dup_t"))
-    if schema[spec.time] == pl.String:
-        # the last 6 characters hold the offset ("+01:00", "-0500", "Z"); the regex runs on the
-        # few distinct endings only, not on every row
-        ends = pl.col(spec.time).str.slice(-6).unique()
-        offsets = ends.str.extract(r"(Z|[+-]\d\d:?\d\d)$", 1).drop_nulls().unique().sort()
-    else:
-        offsets = pl.lit(None, dtype=pl.String).drop_nulls()
+    tz_offsets = _offsets_of(spec.time) if schema[spec.time] == pl.String else None
     used = [spec.time, spec.current.column, spec.voltage.column, spec.wire_feed.column,
             *(c for c in (spec.seam, spec.part, spec.serial, spec.tip_change) if c is not None and c in schema)]
     if has_travel:
@@ -450,10 +476,10 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
     channels = tuple((alias, ch.column, schema[ch.column].is_numeric())
                      for ch, alias in ((spec.current, "current"), (spec.voltage, "voltage"),
                                        (spec.wire_feed, "wire_feed")))
-    light = (pl.len().alias("rows"), checks[-1], offsets.implode().alias("tz_offsets"))
+    light = (pl.len().alias("rows"), checks[-1])
     plan = BatchPlan(source=source, origin=batch_abs.first(), canonical=canonical, text=text,
-                     checks=(*checks, offsets.implode().alias("tz_offsets")), time_column=spec.time,
-                     light_checks=light, channels=channels, to_ts=to_ts)
+                     checks=tuple(checks), time_column=spec.time, light_checks=light, channels=channels,
+                     to_ts=to_ts, tz_offsets=tz_offsets)
     # Whole-file lazy forms (traces, the window fallback, tests): t from the first value.
     whole = [_t_from(abs_t, numeric_time, abs_t.first()), *exprs[:5], *strings, *exprs[5:]]
     return Samples(frame=lf.select(whole), columns=tuple(names), has_seam=present["seam"], has_part=present["part"],

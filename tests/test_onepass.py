@@ -180,7 +180,8 @@ def test_sorted_time_reduction_equals_the_general_form(df, trims):
     from ingest.schema import ArcSettings
 
     arc = ArcSettings(trim_start=trims[0], trim_end=trims[1])
-    got = _reduce_sorted_runs(df, df["t"].to_numpy(), arc, True)
+    tn = df["t"].to_numpy()
+    got = _reduce_sorted_runs(df, tn, np.append(np.diff(tn), 0.0), arc, True)
     want = _reduce_any_runs(df, arc, True)
     assert got.schema == want.schema
     means = [c for c in want.columns if c.endswith("_mean")]

@@ -55,3 +55,35 @@ def test_what_the_fast_parser_refuses_fails_as_polars_does(text):
         s.str.to_datetime(time_zone="UTC", time_unit="us", strict=True)
     with pytest.raises(type(want.value)):
         parse_iso_utc(s)
+
+
+_ENDS = st.sampled_from(["Z", "+00:00", "+01:00", "-05:00", "+0200", "-0330", "", "", ".125", ":00"])
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.tuples(instants, _ENDS), st.sampled_from(["2026-11-30", "-11-30", "garbage"])),
+                min_size=1, max_size=90),
+       st.sampled_from(["T", " "]))
+def test_offsets_found_in_a_batch_are_those_of_its_values(values, sep):
+    # The distinct UTC offsets a batch's timestamps carry, by its fast tests, against the
+    # definition applied to every value one by one: "Z" or a signed hh[:]mm at the end.
+    import re
+
+    from ingest.reader import _OFFSET, _offsets_of
+
+    text = [v if v is None or isinstance(v, str) else v[0].strftime(f"%Y-%m-%d{sep}%H:%M:%S") + v[1] for v in values]
+    want = sorted({m.group(1) for v in text if v is not None and (m := re.search(_OFFSET, v[-6:]))})
+    got = _offsets_of("time")(pl.DataFrame({"time": pl.Series(text, dtype=pl.String)}))
+    assert got == want
+
+
+@pytest.mark.parametrize("end, want", [("Z", ["Z"]), ("+01:00", ["+01:00"]), ("-0500", ["-0500"]), ("", []),
+                                        (".250", [])])
+def test_offsets_of_a_batch_with_one_form(end, want):
+    from ingest.reader import _offsets_of
+
+    text = [f"2026-11-30T22:{m:02d}:00{end}" for m in range(60)] + [None]
+    assert _offsets_of("time")(pl.DataFrame({"time": pl.Series(text, dtype=pl.String)})) == want
+    # one odd value later in the batch is found too
+    odd = ["2026-11-30T23:00:00+02:00", *text]
+    assert _offsets_of("time")(pl.DataFrame({"time": pl.Series(odd[1:] + odd[:1], dtype=pl.String)})) == sorted({*want, "+02:00"})
