@@ -92,6 +92,13 @@ def _own(s: pl.Series) -> pl.Series:
     return pl.Series(s.name, s.to_list(), dtype=pl.String)
 
 
+def _positions(mask: pl.Series, offset: int) -> pl.Series:
+    """Row positions along the file where ``mask`` is true, in a buffer of their own. (A filter
+    whose kept rows are one block is a zero-copy slice, which keeps the batch's whole column
+    alive: kept for the file's length, such slices grew memory with the file.)"""
+    return mask.arg_true().cast(pl.Int64) + offset
+
+
 class _Text:
     """Where each value of one text column starts along the file (small: one row a change)."""
 
@@ -501,7 +508,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 b = b.with_columns(_arc_state(arc, last_arc))
             for k in names:
                 m = chg.get_column(f"_c_{k}")
-                text[k].add(b.get_column("_pos").filter(m), txt.get_column(k).filter(m))
+                text[k].add(_positions(m, offset), txt.get_column(k).filter(m))
                 last_text[k] = txt.get_column(k)[-1]
             if labelled:
                 new = chg.get_column("_c_seam")
@@ -509,7 +516,9 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                     new = new | chg.get_column("_c_serial")
                 keys = _run_keys(new, key_base)
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
-                label_rows.append(pl.DataFrame([keys.filter(new), _own(txt.get_column("seam").filter(new)),
+                # the runs starting in this batch are numbered key_base, key_base + 1, ...
+                starts = pl.Series("_key", np.arange(key_base, key_base + int(new.sum()), dtype=np.int64))
+                label_rows.append(pl.DataFrame([starts, _own(txt.get_column("seam").filter(new)),
                                                 (_own(txt.get_column("serial").filter(new)) if "serial" in names
                                                  else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
             else:
