@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import queue
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -364,7 +364,7 @@ def _batches(samples: Samples, chunk_rows: int) -> Iterator[pl.DataFrame]:
 READ_AHEAD = 2
 
 
-def _read_ahead(loads: list, workers: int = READ_AHEAD) -> Iterator[pl.DataFrame]:
+def _read_ahead(loads: list[Callable[[], pl.DataFrame]], workers: int = READ_AHEAD) -> Iterator[pl.DataFrame]:
     """``load()`` of each of ``loads`` in order, ``workers`` of them running at once in threads; an
     error is raised here, in order. Loads not started when the consumer stops are cancelled."""
     pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="ctwd-read")
