@@ -35,7 +35,7 @@ import polars as pl
 
 from ingest.reader import CHECK_COMBINE, HARD_LIMITS, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
-from ingest.seams import AGGREGATE_COLUMNS, seam_aggregates
+from ingest.seams import AGGREGATE_COLUMNS, arc_state, seam_aggregates, valid_reading
 
 __all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS"]
 
@@ -53,19 +53,6 @@ class FilePass:
     aggregates: pl.DataFrame  # one row a seam, columns of ingest.seams.AGGREGATE_COLUMNS (+ tip_change)
     quality: dict  # file-level checks, keys of ingest.reader.CHECK_COMBINE
     samples: Samples
-
-
-def _valid(col: str) -> pl.Expr:
-    c = pl.col(col)
-    return c.is_not_null() & c.is_finite() & (c > 0)
-
-
-def _arc_state(arc: ArcSettings, last: bool) -> pl.Expr:
-    """Arc on where current > threshold; a null/NaN current carries the previous state (from the
-    previous batch at the start of this one)."""
-    cur = pl.col("current")
-    return (pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
-            .forward_fill().fill_null(last).alias("_arc"))
 
 
 def _changed(col: str, before: str | None, first_batch: bool) -> pl.Expr:
@@ -147,7 +134,7 @@ def _valid_kept(col: str) -> pl.Expr:
     is null or finite (ingest.reader.HARD_LIMITS), so "valid" is just > 0 there (a null compares
     null: not kept)."""
     c = pl.col(col)
-    return pl.when((c > 0) if col in HARD_LIMITS else _valid(col)).then(c)
+    return pl.when((c > 0) if col in HARD_LIMITS else valid_reading(col)).then(c)
 
 
 def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: ArcSettings,
@@ -505,7 +492,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             if cur.null_count() == 0:  # nothing to carry over: arc on is just current > threshold
                 b = b.with_columns((pl.col("current") > arc.min_current).alias("_arc"))
             else:
-                b = b.with_columns(_arc_state(arc, last_arc))
+                b = b.with_columns(arc_state(arc, last_arc).alias("_arc"))
             for k in names:
                 m = chg.get_column(f"_c_{k}")
                 text[k].add(_positions(m, offset), txt.get_column(k).filter(m))

@@ -10,7 +10,7 @@ import polars as pl
 
 from ingest.schema import ArcSettings
 
-__all__ = ["seam_aggregates", "AGGREGATE_COLUMNS"]
+__all__ = ["seam_aggregates", "valid_reading", "arc_state", "AGGREGATE_COLUMNS"]
 
 #: Columns of the per-seam aggregate frame (SI units; see README "Outputs").
 AGGREGATE_COLUMNS = (
@@ -21,10 +21,19 @@ AGGREGATE_COLUMNS = (
 )
 
 
-def _valid(col: str) -> pl.Expr:
+def valid_reading(col: str) -> pl.Expr:
     """A usable reading: present, finite and positive (a dropped-out channel reads null or 0)."""
     c = pl.col(col)
     return c.is_not_null() & c.is_finite() & (c > 0)
+
+
+def arc_state(arc: ArcSettings, last: bool = False) -> pl.Expr:
+    """Arc on where current > the threshold; a null/NaN current carries the previous state
+    (``last`` before the first row: off for a whole file, the previous batch's last state for a
+    batch), so a current dropout inside a seam does not split it."""
+    cur = pl.col("current")
+    return (pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
+            .forward_fill().fill_null(last))
 
 
 def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> pl.LazyFrame:
@@ -58,11 +67,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     """
     has_marker = "tip_change" in samples.collect_schema().names()
     cur = pl.col("current")
-    arc_on = (
-        pl.when(cur.is_null() | cur.is_nan()).then(None).otherwise(cur > arc.min_current)
-        .forward_fill().fill_null(False)
-    )
-    lf = samples.with_columns(arc_on.alias("_arc"))
+    lf = samples.with_columns(arc_state(arc).alias("_arc"))
     serial_key = pl.col("serial").fill_null("")
     if labelled:
         lf = lf.filter(pl.col("_arc") & pl.col("seam").is_not_null())
@@ -79,9 +84,9 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     lf = lf.with_columns(t0.alias("_t0"), t1.alias("_t1"), keep.alias("_keep"))
 
     k = pl.col("_keep")
-    cur_ok = _valid("current") & k
-    volt_ok = _valid("voltage") & k
-    wfs_ok = _valid("wire_feed") & k
+    cur_ok = valid_reading("current") & k
+    volt_ok = valid_reading("voltage") & k
+    wfs_ok = valid_reading("wire_feed") & k
     both_ok = cur_ok & volt_ok
     tk = pl.when(k).then(t)
     steps = tk.drop_nulls().diff()
@@ -99,10 +104,10 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         pl.col("voltage").filter(volt_ok).mean().alias("voltage_mean"),
         (cur * pl.col("voltage")).filter(both_ok).mean().alias("power_mean"),
         pl.col("wire_feed").filter(wfs_ok).mean().alias("wire_feed_mean"),
-        pl.col("travel_speed").filter(k & _valid("travel_speed")).mean().alias("travel_speed_mean"),
-        (k & ~_valid("current")).sum().alias("current_bad"),
-        (k & ~_valid("voltage")).sum().alias("voltage_bad"),
-        (k & ~_valid("wire_feed")).sum().alias("wire_feed_bad"),
+        pl.col("travel_speed").filter(k & valid_reading("travel_speed")).mean().alias("travel_speed_mean"),
+        (k & ~valid_reading("current")).sum().alias("current_bad"),
+        (k & ~valid_reading("voltage")).sum().alias("voltage_bad"),
+        (k & ~valid_reading("wire_feed")).sum().alias("wire_feed_bad"),
         steps.max().alias("max_gap_s"),
         steps.min().alias("min_step_s"),
         (~k).sum().alias("n_trimmed"),
