@@ -503,11 +503,11 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                     new = new | chg.get_column("_c_serial")
                 keys = _run_keys(new, key_base)
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
-                # the runs starting in this batch are numbered key_base, key_base + 1, ...
-                starts = pl.Series("_key", np.arange(key_base, key_base + int(new.sum()), dtype=np.int64))
+                # the runs starting in this batch are numbered key_base, key_base + 1, ..., keys[-1]
+                starts = pl.Series("_key", np.arange(key_base, int(keys[-1]) + 1, dtype=np.int64))
                 label_rows.append(pl.DataFrame([starts, _own(txt.get_column("seam").filter(new)),
                                                 (_own(txt.get_column("serial").filter(new)) if "serial" in names
-                                                 else pl.Series("serial", [None] * int(new.sum()), dtype=pl.String))]))
+                                                 else pl.Series("serial", [None] * len(starts), dtype=pl.String))]))
             else:
                 arc_on = b.get_column("_arc")
                 first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
