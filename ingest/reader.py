@@ -24,6 +24,8 @@ _PROBE = 64 * 1024  # bytes read from the head and the tail of a file before tru
 #: Common practice for GMAW, no source.
 HARD_LIMITS = {"current": (-100.0, 10_000.0), "voltage": (-100.0, 1_000.0), "wire_feed": (-1.0, 10.0)}
 
+_OFFSET = r"(Z|[+-]\d\d:?\d\d)$"  # "Z", "+01:00", "-0500" at the end of an ISO-8601 timestamp
+
 SUFFIXES = {".csv": "csv", ".txt": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
 
@@ -161,7 +163,7 @@ def diagnose_csv(path: Path, spec: ExportSpec) -> str | None:
         vals = body.select("n", pl.col("f").list.get(j, null_on_oob=True).str.strip_chars().alias("v"))
         numeric = vals["v"].cast(pl.Float64, strict=False).is_not_null()
         if not numeric.all():
-            has_tz = vals["v"].str.contains(r"(Z|[+-]\d\d:?\d\d)$")
+            has_tz = vals["v"].str.contains(_OFFSET)
             if has_tz.any() and not has_tz.all():
                 i = int((~has_tz).arg_max() if has_tz[0] else has_tz.arg_max())
                 return (f'line {vals["n"][i]}: time "{vals["v"][i]}" mixes timestamps with and without a UTC offset '
@@ -285,8 +287,6 @@ class BatchPlan:
     #: the distinct UTC offsets a batch's text timestamps carry (None: the time is not text)
     tz_offsets: Callable[[pl.DataFrame], list[str]] | None = None
 
-
-_OFFSET = r"(Z|[+-]\d\d:?\d\d)$"  # "Z", "+01:00", "-0500" at the end of an ISO-8601 timestamp
 
 
 def _offsets_of(column: str) -> Callable[[pl.DataFrame], list[str]]:
