@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -115,6 +116,9 @@ def _stat_key(path: Path) -> tuple[int, int]:
     return st.st_size, st.st_mtime_ns
 
 
+#: Files shorter than this [bytes] are checksummed again after the read.
+RECHECK_BELOW = 256 * 2**20
+
 CHANGED = "file changed while being read (cell still writing?); skipped, will be read next run"
 
 
@@ -124,8 +128,9 @@ def scan_file(
     """Scan one export file. Never raises for bad input: the record carries the one-line reason.
 
     Order of checks: stat, a cheap probe of size and head/tail bytes (a 10 GB sparse file or a cut
-    Parquet file is refused without being read), checksum, the lazy scan, then stat and checksum
-    again: a file that changed meanwhile is skipped (its results would mix two versions).
+    Parquet file is refused without being read), checksum (a file of :data:`RECHECK_BELOW` or
+    more: while it is read), the streaming pass, then stat and (a shorter file) checksum again: a
+    file that changed meanwhile is skipped (its results would mix two versions).
     """
     source = label or str(path)
     fmt = file_format(path) or "?"
@@ -144,28 +149,39 @@ def scan_file(
         return skip(str(exc), size)
     except OSError as exc:
         return skip(f"cannot be read ({exc.strerror})", size)
-    try:
-        digest = file_digest(path)
-    except OSError as exc:
-        return skip(f"cannot be read ({exc.strerror})", size)
     spec = cfg.cell.export
-    try:
+    # A file below RECHECK_BELOW is checksummed before the read and again after it, so the two
+    # checksums bracket the read. A longer one is checked again by its stat key only (a second
+    # checksum of gigabytes would cost more than the read), so nothing is lost by taking its one
+    # checksum in a thread while it is read (hashlib and polars release the GIL): a 1.5 GB CSV
+    # costs about a second to hash, which then no longer waits in front of the read.
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ctwd-digest") as pool:
+        pending = pool.submit(file_digest, path)
+        if size < RECHECK_BELOW:
+            pending.exception()  # wait: this checksum is taken before the read
+        failed: str | None = None
         try:
-            got = _collect(path, cfg)
-        except (pl.exceptions.ComputeError, IngestError) as exc:
-            if fmt != "csv" or "utf-8" not in str(exc).lower():
-                raise
-            # Repair: a latin-1 serial or comment must not cost the night's data.
-            got = _collect(path, cfg, encoding="utf8-lossy")
-        agg, quality, samples = got.aggregates, got.quality, got.samples
-        rows = int(quality["rows"])
-    except IngestError as exc:
-        return skip(str(exc), size, digest)
-    except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
-        found = diagnose_csv(path, spec) if fmt == "csv" else None
-        return skip(found or polars_reason(exc), size, digest)
+            try:
+                got = _collect(path, cfg)
+            except (pl.exceptions.ComputeError, IngestError) as exc:
+                if fmt != "csv" or "utf-8" not in str(exc).lower():
+                    raise
+                # Repair: a latin-1 serial or comment must not cost the night's data.
+                got = _collect(path, cfg, encoding="utf8-lossy")
+            agg, quality, samples = got.aggregates, got.quality, got.samples
+            rows = int(quality["rows"])
+        except IngestError as exc:
+            failed = str(exc)
+        except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
+            failed = (diagnose_csv(path, spec) if fmt == "csv" else None) or polars_reason(exc)
+        try:
+            digest = pending.result()
+        except OSError as exc:
+            return skip(f"cannot be read ({exc.strerror})", size)
+    if failed is not None:
+        return skip(failed, size, digest)
     try:
-        changed = _stat_key(path) != before or (size < 256 * 2**20 and file_digest(path) != digest)
+        changed = _stat_key(path) != before or (size < RECHECK_BELOW and file_digest(path) != digest)
     except OSError:
         changed = True
     if changed:

@@ -179,6 +179,41 @@ def test_same_size_rewrite_caught_by_checksum(tmp_path, cfg, monkeypatch):
     assert df is None and rec.error == CHANGED
 
 
+def test_long_file_checksummed_while_read_and_a_change_still_caught(tmp_path, cfg, monkeypatch):
+    """A file of RECHECK_BELOW bytes or more has its one checksum taken while it is read: the
+    recorded checksum is still the file's SHA-256 (hashlib as the reference), a read that fails
+    still records it, and an append during the read is caught by the stat key."""
+    import hashlib
+
+    import monitor.pipeline as pipeline
+
+    monkeypatch.setattr(pipeline, "RECHECK_BELOW", 0)  # every file counts as long
+    p = tmp_path / "long.csv"
+    good_frame(np.random.default_rng(5), "TB7-0557").write_csv(p)
+    df, rec = scan_file(p, cfg)
+    assert rec.status == "read" and df is not None and df.height == 3
+    assert rec.sha256 == hashlib.sha256(p.read_bytes()).hexdigest()
+
+    real = pipeline._collect
+
+    def writing_cell(path, cfg_, **kw):
+        got = real(path, cfg_, **kw)
+        with open(path, "a", encoding="utf-8") as fh:
+            fh.write("2026-11-30T02:09:00.000+00:00,TB7-tow-bracket,TB7-0557,,0.1,0.5,0.0,0.0\n")
+        return got
+
+    monkeypatch.setattr(pipeline, "_collect", writing_cell)
+    df, rec = scan_file(p, cfg)
+    assert df is None and rec.error == CHANGED
+
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,current\n0,1\n", encoding="utf-8")
+    monkeypatch.setattr(pipeline, "_collect", real)
+    df, rec = scan_file(bad, cfg)
+    assert df is None and rec.status == "skipped" and "not found" in rec.error
+    assert rec.sha256 == hashlib.sha256(bad.read_bytes()).hexdigest()
+
+
 def test_page_lists_skipped_reasons_and_repairs(corpus_run):
     """The morning page carries the same one-line reasons and repair notes as files.csv, HTML-escaped
     (escaping as done by markupsafe, the library jinja2's autoescape uses)."""
