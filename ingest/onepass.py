@@ -150,8 +150,10 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     """
     key = df.get_column("_key").to_numpy()
     n = len(key)
-    first = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
-    end = np.append(first[1:], n)  # one past each run's last row
+    # run keys increase along the file: each run's rows found by binary search, not by a pass
+    bounds = np.searchsorted(key, np.arange(key[0], key[-1] + 2))
+    held = bounds[1:] > bounds[:-1]  # keys of runs that kept no row are skipped
+    first, end = bounds[:-1][held], bounds[1:][held]  # each run's first row, and one past its last
     start_s, t1 = tn[first], tn[end - 1]
     # the window [start + trim_start, end - trim_end], as a block of rows of each run
     a = np.clip(np.searchsorted(tn, start_s + arc.trim_start, side="left"), first, end)
@@ -184,7 +186,10 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     cols = {
         "_key": key[first], "start_s": start_s, "_t1": t1,
         "_p0": pos[first], "_p1": pos[end - 1],
-        "_abs_min": pl.Series(np.minimum.reduceat(abs_t.to_numpy(), first), dtype=abs_t.dtype),
+        # integer stored times (timestamps) rise with t, so a run's first is its least; float
+        # seconds might not, to rounding, so they are searched
+        "_abs_min": pl.Series(abs_t.to_numpy()[first] if abs_t.dtype.is_integer()
+                              else np.minimum.reduceat(abs_t.to_numpy(), first), dtype=abs_t.dtype),
         "_tk_min": pl.Series(np.where(nonempty, tn[np.minimum(a, n - 1)], np.nan), nan_to_null=True),
         "_tk_max": pl.Series(np.where(nonempty, tn[np.minimum(last_kept, n - 1)], np.nan), nan_to_null=True),
         "n_samples": pl.Series(n_kept, dtype=pl.UInt32),
@@ -481,12 +486,15 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             if fast_checks:
                 # counts from the columns themselves: a canonical channel is null where the export's is
                 # null, NaN, or outside the plausibility limits (ingest.reader.HARD_LIMITS)
+                # (null counts are known without a pass; NaNs are counted only when some reading
+                # became null, so a clean batch costs one pass, the current's maximum)
                 for alias, col, _numeric in plan.channels:
                     x, c = raw.get_column(col), b.get_column(alias)
-                    nan = int(x.is_nan().sum()) if x.dtype.is_float() else 0
+                    lost = c.null_count() - x.null_count()  # NaN or outside the limits
+                    nan = int(x.is_nan().sum()) if lost and x.dtype.is_float() else 0
                     got[f"{alias}_nulls"] = x.null_count()
-                    got[f"{alias}_absurd"] = c.null_count() - x.null_count() - nan
-                    got[f"{alias}_max"] = c.max()
+                    got[f"{alias}_absurd"] = lost - nan
+                got["current_max"] = b.get_column("current").max()
             _combine(quality, got)
             cur = b.get_column("current")
             if cur.null_count() == 0:  # nothing to carry over: arc on is just current > threshold

@@ -317,12 +317,12 @@ def _offsets_of(column: str) -> Callable[[pl.DataFrame], list[str]]:
 
 #: The file-level checks and how per-batch values combine into the file's ("sum", "max", or "union"
 #: of strings): ``rows``; ``<ch>_nulls`` and ``<ch>_absurd`` (readings outside HARD_LIMITS, sensor
-#: sentinels or saturation) and ``<ch>_max`` (SI, over plausible readings) for current, voltage,
-#: wire feed; ``dup_t`` repeated timestamps; ``tz_offsets`` the UTC offsets text timestamps carry;
-#: ``seam_labels`` (labelled files) every "serial\u241fseam" key.
-CHECK_COMBINE = {"rows": "sum", "dup_t": "sum", "tz_offsets": "union", "seam_labels": "union",
-                 **{f"{c}_{k}": ("max" if k == "max" else "sum") for c in ("current", "voltage", "wire_feed")
-                    for k in ("nulls", "absurd", "max")}}
+#: sentinels or saturation) for current, voltage, wire feed; ``current_max`` (A, over plausible
+#: readings: the units hint of a file without arc-on samples); ``dup_t`` repeated timestamps;
+#: ``tz_offsets`` the UTC offsets text timestamps carry; ``seam_labels`` (labelled files) every
+#: "serial\u241fseam" key.
+CHECK_COMBINE = {"rows": "sum", "dup_t": "sum", "tz_offsets": "union", "seam_labels": "union", "current_max": "max",
+                 **{f"{c}_{k}": "sum" for c in ("current", "voltage", "wire_feed") for k in ("nulls", "absurd")}}
 
 
 def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Samples:
@@ -433,8 +433,9 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         lo, hi = HARD_LIMITS[alias]
         ok = x.is_between(lo, hi)
         checks += [x.is_null().sum().alias(f"{alias}_nulls"),
-                   (x.is_not_null() & ~ok & ~x.is_nan()).sum().alias(f"{alias}_absurd"),
-                   x.filter(ok).max().alias(f"{alias}_max")]
+                   (x.is_not_null() & ~ok & ~x.is_nan()).sum().alias(f"{alias}_absurd")]
+        if alias == "current":
+            checks.append(x.filter(ok).max().alias("current_max"))
     # repeated timestamps compared as logged (no second parse of the time column)
     checks.append((pl.col(spec.time) == pl.col(spec.time).shift(1)).sum().alias("dup_t"))
     tz_offsets = _offsets_of(spec.time) if schema[spec.time] == pl.String else None
