@@ -525,11 +525,20 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             key_base = int(keys[-1]) + 1
             last_arc = bool(b.get_column("_arc")[-1])
             b = b.with_columns(keys).filter(in_run).drop("_arc")
-            if carry is not None and carry.height:
-                b = pl.concat([carry, b], how="vertical_relaxed")
             offset += n
+            if carry is not None and carry.height:
+                # the carried run with its rows in this batch, in a frame of its own (small), so
+                # the rest of the batch stays one chunk: no copies to hand its columns to numpy
+                k0 = carry.get_column("_key")[-1]
+                m = b.get_column("_key").search_sorted(k0, side="right") if b.height else 0
+                head = pl.concat([carry, b.slice(0, m)], how="vertical_relaxed", rechunk=True)
+                b = b.slice(m)
+                if b.height == 0:  # the run goes on through this batch
+                    carry = head
+                    continue
+                parts.append(pool.submit(_reduce_runs, head, arc, has_marker))  # complete: a later run follows
+            carry = None
             if b.height == 0:
-                carry = None
                 continue
             last = b.get_column("_key")[-1]
             split = b.get_column("_key").search_sorted(last, side="left")
