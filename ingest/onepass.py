@@ -531,12 +531,13 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 # the rest of the batch stays one chunk: no copies to hand its columns to numpy
                 k0 = carry.get_column("_key")[-1]
                 m = b.get_column("_key").search_sorted(k0, side="right") if b.height else 0
-                head = pl.concat([carry, b.slice(0, m)], how="vertical_relaxed", rechunk=True)
+                head = pl.concat([carry, b.slice(0, m)], how="vertical_relaxed")
                 b = b.slice(m)
-                if b.height == 0:  # the run goes on through this batch
+                if b.height == 0:  # the run goes on through this batch (chunks appended, not copied)
                     carry = head
                     continue
-                parts.append(pool.submit(_reduce_runs, head, arc, has_marker))  # complete: a later run follows
+                # complete: a later run follows; one copy into one chunk, once
+                parts.append(pool.submit(_reduce_runs, head.rechunk(), arc, has_marker))
             carry = None
             if b.height == 0:
                 continue
