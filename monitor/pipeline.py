@@ -111,6 +111,22 @@ def _collect(path: Path, cfg: Config, encoding: str = "utf8") -> FilePass:
     return aggregate_file(path, cfg.cell.export, cfg.cell.arc, encoding=encoding)
 
 
+def _read(path: Path, cfg: Config, fmt: str) -> tuple[FilePass | None, str | None]:
+    """(the file's one pass, None), or (None, the one-line reason it cannot be read)."""
+    try:
+        try:
+            return _collect(path, cfg), None
+        except (pl.exceptions.ComputeError, IngestError) as exc:
+            if fmt != "csv" or "utf-8" not in str(exc).lower():
+                raise
+            # Repair: a latin-1 serial or comment must not cost the night's data.
+            return _collect(path, cfg, encoding="utf8-lossy"), None
+    except IngestError as exc:
+        return None, str(exc)
+    except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
+        return None, (diagnose_csv(path, cfg.cell.export) if fmt == "csv" else None) or polars_reason(exc)
+
+
 def _stat_key(path: Path) -> tuple[int, int]:
     st = path.stat()
     return st.st_size, st.st_mtime_ns
@@ -155,31 +171,24 @@ def scan_file(
     # checksum of gigabytes would cost more than the read), so nothing is lost by taking its one
     # checksum in a thread while it is read (hashlib and polars release the GIL): a 1.5 GB CSV
     # costs about a second to hash, which then no longer waits in front of the read.
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ctwd-digest") as pool:
-        pending = pool.submit(file_digest, path)
-        if size < RECHECK_BELOW:
-            pending.exception()  # wait: this checksum is taken before the read
-        failed: str | None = None
+    if size < RECHECK_BELOW:
         try:
-            try:
-                got = _collect(path, cfg)
-            except (pl.exceptions.ComputeError, IngestError) as exc:
-                if fmt != "csv" or "utf-8" not in str(exc).lower():
-                    raise
-                # Repair: a latin-1 serial or comment must not cost the night's data.
-                got = _collect(path, cfg, encoding="utf8-lossy")
-            agg, quality, samples = got.aggregates, got.quality, got.samples
-            rows = int(quality["rows"])
-        except IngestError as exc:
-            failed = str(exc)
-        except (pl.exceptions.PolarsError, OSError, ValueError) as exc:
-            failed = (diagnose_csv(path, spec) if fmt == "csv" else None) or polars_reason(exc)
-        try:
-            digest = pending.result()
+            digest = file_digest(path)
         except OSError as exc:
             return skip(f"cannot be read ({exc.strerror})", size)
+        got, failed = _read(path, cfg, fmt)
+    else:
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ctwd-digest") as pool:
+            pending = pool.submit(file_digest, path)
+            got, failed = _read(path, cfg, fmt)
+            try:
+                digest = pending.result()
+            except OSError as exc:
+                return skip(f"cannot be read ({exc.strerror})", size)
     if failed is not None:
         return skip(failed, size, digest)
+    agg, quality, samples = got.aggregates, got.quality, got.samples
+    rows = int(quality["rows"])
     try:
         changed = _stat_key(path) != before or (size < RECHECK_BELOW and file_digest(path) != digest)
     except OSError:
