@@ -206,14 +206,34 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     if has_marker:
         marks = df.get_column("tip_change").to_numpy()
         out = out.with_columns(pl.Series("tip_change", np.logical_or.reduceat(marks, first)))
+    live = df.get_column("_live").to_numpy()[first]
+    if not live.all():
+        out = out.filter(pl.Series(live))
     return out.select("_key", "start_s", "_t1", "_p0", "_p1", "_abs_min", "_tk_min", "_tk_max", "n_samples", "_n_all",
                       "current_mean", "current_sq_mean", "voltage_mean", "power_mean", "wire_feed_mean",
                       "travel_speed_mean", "current_bad", "voltage_bad", "wire_feed_bad", "max_gap_s", "min_step_s",
                       *(["tip_change"] if has_marker else []))
 
 
+def _whole_runs(in_run: pl.Series, new: pl.Series, first_key: int, carry: pl.DataFrame | None) -> bool:
+    """True when every run of a batch is arc on on all its rows or on none (a well-formed
+    export), so the batch need not be filtered: each run is kept or dropped as a whole after its
+    reduction (``_live``). ``new`` marks the rows that start a run, ``first_key`` is the first
+    row's run: a first row that continues the carried run must be arc on (the carry holds arc-on
+    rows only), one that continues a dropped run must be arc off. Otherwise (a seam label held
+    over arc-off rows, say) the batch is filtered to its arc-on rows."""
+    n = len(in_run)
+    if n > 1 and bool((new.slice(1) | in_run.slice(1).eq(in_run.slice(0, n - 1))).not_().any()):
+        return False
+    if new[0]:
+        return True
+    carried = carry is not None and carry.height > 0 and int(carry.get_column("_key")[-1]) == first_key
+    return bool(in_run[0]) == carried
+
+
 def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
-    """One row a run of ``df``: arc-on rows of complete runs, ``_key`` sorted, in file order."""
+    """One row a run of ``df`` (complete runs, ``_key`` sorted, in file order) that is arc on
+    (``_live``); a batch kept whole also holds runs out of arc, dropped here."""
     tt = df.get_column("t")
     if tt.null_count() == 0:
         tn = tt.to_numpy()
@@ -252,7 +272,7 @@ def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl
         return pl.when(kk).then(_valid_kept(col))
 
     df = df.select(
-        "_key", "_pos", "_abs", *(["tip_change"] if has_marker else []),
+        "_key", "_pos", "_abs", "_live", *(["tip_change"] if has_marker else []),
         tk.alias("_tk"), step.alias("_step"),
         kept("current").alias("_i"), kept("voltage").alias("_v"),
         kept("wire_feed").alias("_w"), kept("travel_speed").alias("_s"),
@@ -274,8 +294,10 @@ def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl
         pl.col("_step").max().alias("max_gap_s"),
         pl.col("_step").min().alias("min_step_s"),
         *([pl.col("tip_change").any()] if has_marker else []),
+        pl.col("_live").first(),
     )
-    return pl.concat([bounds, out.drop("_key")], how="horizontal")
+    got = pl.concat([bounds, out.drop("_key")], how="horizontal")
+    return got.filter(pl.col("_live")).drop("_live")
 
 
 def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None, arc: ArcSettings,
@@ -524,7 +546,10 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 in_run = arc_on
             key_base = int(keys[-1]) + 1
             last_arc = bool(b.get_column("_arc")[-1])
-            b = b.with_columns(keys).filter(in_run).drop("_arc")
+            whole = _whole_runs(in_run, new, int(keys[0]), carry)
+            b = b.with_columns(keys, in_run.alias("_live")).drop("_arc")
+            if not whole:
+                b = b.filter(in_run)
             offset += n
             if carry is not None and carry.height:
                 # the carried run with its rows in this batch, in a frame of its own (small), so
@@ -543,14 +568,16 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 continue
             last = b.get_column("_key")[-1]
             split = b.get_column("_key").search_sorted(last, side="left")
-            carry = b.slice(split)
+            # a run out of arc (kept whole) is dropped, not carried: its rows in the next batch
+            # form a run that is dropped again, or (arc on there) are read by the filter
+            carry = b.slice(split) if b.get_column("_live")[-1] else None
             if split:
                 parts.append(pool.submit(_reduce_runs, b.slice(0, split), arc, has_marker))
                 if len(parts) >= 2 and not parts[-2].done():
                     parts[-2].result()  # at most two batches being reduced: memory stays bounded
         if carry is not None and carry.height:
             parts.append(pool.submit(_reduce_runs, carry, arc, has_marker))
-        done = [f.result() for f in parts]
+        done = [got for f in parts if (got := f.result()).height]
     finally:
         pool.shutdown(wait=False, cancel_futures=True)
     if not quality:

@@ -57,7 +57,7 @@ def _night(path: Path, n_seams: int = 9, rate: float = 500.0, seed: int = 2) -> 
         "wfs_m_min": np.where(in_seam, 9.0 + rng.normal(0, 0.05, n), 0.0).round(3),
         "travel_mm_s": np.where(in_seam, 8.0, 0.0),
     })
-    df.to_parquet(path)
+    df.to_parquet(path, row_group_size=256)  # small row groups: batches of a few hundred rows possible
     return df
 
 
@@ -200,6 +200,8 @@ def _sorted_runs(draw):
         "travel_speed": pl.Series(chan((st.sampled_from([float("nan"), float("inf")]),)), dtype=pl.Float64),
         "_pos": np.arange(100, 100 + n, dtype=np.int64),
         "tip_change": draw(st.lists(st.booleans(), min_size=n, max_size=n)),
+        # a batch kept whole holds runs out of arc too, dropped by the reduction
+        "_live": np.repeat(draw(st.lists(st.booleans(), min_size=len(lens), max_size=len(lens))), lens),
         # run keys rise along the file, with gaps where a run kept no arc-on row
         "_key": np.repeat(5 + np.cumsum(draw(st.lists(st.integers(1, 3), min_size=len(lens), max_size=len(lens)))),
                           lens).astype(np.int64),
