@@ -450,29 +450,34 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         # the stored integers are UTC epoch counts whatever the zone: no conversion per row
         per_s = 1e3 if tdt.time_unit == "ms" else 1e6
         batch_abs = pl.col(spec.time).to_physical()
+        stored_ints = True
 
         def to_ts(v: pl.Expr) -> pl.Expr:
             return (v * (1000 if tdt.time_unit == "ms" else 1)).cast(pl.Datetime("us", "UTC"))
     elif numeric_time:
-        per_s, batch_abs = None, abs_t
+        per_s, batch_abs, stored_ints = None, abs_t, False
 
         def to_ts(v: pl.Expr) -> pl.Expr:
             return pl.lit(None, dtype=pl.Datetime("us", "UTC"))
     else:
-        per_s, batch_abs = 1e6, abs_t
+        per_s, batch_abs, stored_ints = 1e6, abs_t, False
 
         def to_ts(v: pl.Expr) -> pl.Expr:
             return v.cast(pl.Datetime("us", "UTC"))
 
     def canonical(raw: pl.DataFrame, origin, *extra: pl.Expr) -> pl.DataFrame:
         o = pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)
-        # the stored time once (text is parsed once a batch), then t from it
-        b = raw.select(batch_abs.alias("_abs"), *exprs[1:], *extra)
-        a = pl.col("_abs")
-        # exactly the whole-file form's float: microseconds since the first sample / 1e6
+        # stored integer times are read twice in one select (no copy); text is parsed once a
+        # batch and t computed from the parsed column afterwards
+        a = batch_abs if stored_ints else pl.col("_abs")
+        # exactly the whole-file form's float: microseconds since the first sample / 1e6 (not
+        # milliseconds / 1e3: polars divides by a constant through its reciprocal, so the two
+        # differ in the last bit)
         us = (a - o) * 1000 if per_s == 1e3 else a - o
         t = (a - o) if per_s is None else us.cast(pl.Float64) / 1e6
-        return b.with_columns(t.alias("t"))
+        if stored_ints:
+            return raw.lazy().select(batch_abs.alias("_abs"), *exprs[1:], *extra, t.alias("t")).collect()
+        return raw.select(batch_abs.alias("_abs"), *exprs[1:], *extra).with_columns(t.alias("t"))
 
     channels = tuple((alias, ch.column, schema[ch.column].is_numeric())
                      for ch, alias in ((spec.current, "current"), (spec.voltage, "voltage"),
