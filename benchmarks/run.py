@@ -4,8 +4,8 @@
     PYTHONPATH=. python benchmarks/run.py --small        # smoke run, well under a minute
     PYTHONPATH=. python benchmarks/run.py --dask         # also: 8 files on a local Dask cluster, 1 vs 2 workers
 
-Every measurement is a fresh process; repetitions are interleaved (floor, scan, scan with page,
-pandas, CSV floor, CSV scan, then again) and the medians reported. Wall time is measured
+Every measurement is a fresh process; repetitions are interleaved (floor, bare read, scan, scan
+with page, pandas, CSV floor, CSV bare read, CSV scan, then again) and the medians reported. Wall time is measured
 around the process, CPU time (user + system) and peak RSS come from ``os.wait4`` on that
 process. Input files are generated once (benchmarks/night.py) and kept in ``--work``.
 This is a measurement, never a test: nothing here asserts a time.
@@ -36,6 +36,18 @@ df = lf.group_by("serial", "seam").agg(
     pl.col("current_a").mean().alias("i"), (pl.col("current_a") ** 2).mean().alias("i2"),
     pl.col("voltage_v").mean().alias("v"), pl.col("wfs_m_min").mean().alias("w")).collect()
 print(df.height)
+"""
+
+# A bare read of every column the scan needs (all 8 of the night's), in batches, with no work: what
+# the scan cannot go below on the same file, where the floor reads 5 columns.
+READ = """
+import sys, polars as pl
+src = sys.argv[1]
+lf = pl.scan_parquet(src) if src.endswith(".parquet") else pl.scan_csv(src)
+n = 0
+for b in lf.collect_batches(chunk_size=1_000_000, maintain_order=True):
+    n += b.height
+print(n)
 """
 
 # What a user would write instead: read everything, group, apply a Python function per seam.
@@ -115,10 +127,12 @@ def main() -> None:
     cli = [py, "-m", "monitor.cli", "scan", "--config", str(ROOT / "config"), "-q", "--no-history"]
     steps = {
         "floor (polars, Parquet)": [py, "-c", FLOOR, str(pq)],
+        "bare read, 8 cols, Parquet": [py, "-c", READ, str(pq)],
         "ctwd scan --no-page": [*cli, "--out", str(out / "a"), "--no-page", str(_dir_with(pq, "pq"))],
         "ctwd scan (with page)": [*cli, "--out", str(out / "b"), str(_dir_with(pq, "pq"))],
         "pandas reference": [py, "-c", PANDAS, str(pq)],
         "floor (polars, CSV)": [py, "-c", FLOOR, str(csv)],
+        "bare read, 8 cols, CSV": [py, "-c", READ, str(csv)],
         "ctwd scan CSV --no-page": [*cli, "--out", str(out / "c"), "--no-page", str(_dir_with(csv, "csv"))],
     }
     if a.dask:
@@ -150,6 +164,9 @@ def main() -> None:
     print(f"page adds: {page['wall_s'] - scan['wall_s']:.2f} s for {seams} seams")
     csv_ratio = med["ctwd scan CSV --no-page"]["wall_s"] / med["floor (polars, CSV)"]["wall_s"]
     print(f"CSV scan / bare polars CSV scan: {csv_ratio:.2f}x")
+    for fmt, name in (("Parquet", "ctwd scan --no-page"), ("CSV", "ctwd scan CSV --no-page")):
+        got = med[name]["wall_s"] / med[f"bare read, 8 cols, {fmt}"]["wall_s"]
+        print(f"{fmt}: scan / bare read of the columns it needs: {got:.2f}x")
     if a.dask:
         print(f"dask 2 workers vs 1: {med['8 files, dask local:1']['wall_s'] / med['8 files, dask local:2']['wall_s']:.2f}x; "
               f"--jobs 2 vs 1: {med['8 files, --jobs 1']['wall_s'] / med['8 files, --jobs 2']['wall_s']:.2f}x")
