@@ -468,7 +468,9 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
     def canonical(raw: pl.DataFrame, origin, *extra: pl.Expr) -> pl.DataFrame:
         o = pl.lit(origin, dtype=pl.Float64 if numeric_time else pl.Int64)
         # stored integer times are read twice in one select (no copy); text is parsed once a
-        # batch and t computed from the parsed column afterwards
+        # batch and t computed from the parsed column afterwards. An eager select: a lazy one
+        # would compute a scaled channel once, not twice, but returns columns in morsel-sized
+        # chunks, and every later step then pays more than that for the chunks.
         a = batch_abs if stored_ints else pl.col("_abs")
         # exactly the whole-file form's float: microseconds since the first sample / 1e6 (not
         # milliseconds / 1e3: polars divides by a constant through its reciprocal, so the two
@@ -476,7 +478,7 @@ def scan_samples(path: Path, spec: ExportSpec, encoding: str = "utf8") -> Sample
         us = (a - o) * 1000 if per_s == 1e3 else a - o
         t = (a - o) if per_s is None else us.cast(pl.Float64) / 1e6
         if stored_ints:
-            return raw.lazy().select(batch_abs.alias("_abs"), *exprs[1:], *extra, t.alias("t")).collect()
+            return raw.select(batch_abs.alias("_abs"), *exprs[1:], *extra, t.alias("t"))
         return raw.select(batch_abs.alias("_abs"), *exprs[1:], *extra).with_columns(t.alias("t"))
 
     channels = tuple((alias, ch.column, schema[ch.column].is_numeric())
