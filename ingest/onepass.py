@@ -116,14 +116,14 @@ class _Text:
 
 def _masked_means() -> list[pl.Expr]:
     """Per-seam means of the masked channel columns (null where a reading is not kept or not
-    valid): ``_i`` current, ``_v`` voltage, ``_p`` V·I, ``_w`` WFS, ``_s`` travel speed; ⟨I²⟩ in
-    float64 over the same current samples."""
+    valid): ``_i`` current, ``_v`` voltage, ``_w`` WFS, ``_s`` travel speed, and V·I (null unless
+    both are kept); ⟨I²⟩ in float64 over the same current samples."""
     i = pl.col("_i")
     return [
         i.mean().alias("current_mean"),
         (i * i).mean().alias("current_sq_mean"),
         pl.col("_v").mean().alias("voltage_mean"),
-        pl.col("_p").mean().alias("power_mean"),
+        (i * pl.col("_v")).mean().alias("power_mean"),
         pl.col("_w").mean().alias("wire_feed_mean"),
         pl.col("_s").mean().alias("travel_speed_mean"),
     ]
@@ -163,7 +163,6 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     chans = df.select(pl.Series("_g", blocks).set_sorted(),
                       _valid_kept("current").alias("_i"), _valid_kept("voltage").alias("_v"),
                       _valid_kept("wire_feed").alias("_w"), _valid_kept("travel_speed").alias("_s"))
-    chans = chans.with_columns((pl.col("_i") * pl.col("_v")).alias("_p"))  # null unless both are kept
     means = (chans.group_by("_g", maintain_order=True)
              .agg(*_masked_means(), *(pl.col(c).count().alias(f"_n{c}") for c in ("_i", "_v", "_w")))
              .filter(pl.col("_g") % 3 == 1)
@@ -206,7 +205,7 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     if has_marker:
         marks = df.get_column("tip_change").to_numpy()
         out = out.with_columns(pl.Series("tip_change", np.logical_or.reduceat(marks, first)))
-    live = df.get_column("_live").to_numpy()[first]
+    live = df.get_column("_live").gather(first).to_numpy()
     if not live.all():
         out = out.filter(pl.Series(live))
     return out.select("_key", "start_s", "_t1", "_p0", "_p1", "_abs_min", "_tk_min", "_tk_max", "n_samples", "_n_all",
@@ -276,7 +275,7 @@ def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl
         tk.alias("_tk"), step.alias("_step"),
         kept("current").alias("_i"), kept("voltage").alias("_v"),
         kept("wire_feed").alias("_w"), kept("travel_speed").alias("_s"),
-    ).with_columns((pl.col("_i") * pl.col("_v")).alias("_p"))  # null unless both are kept
+    )
     i, tk = pl.col("_i"), pl.col("_tk")
     n_kept = tk.count()  # kept samples; a kept reading that is not valid is a bad one
     out = df.group_by("_key", maintain_order=True).agg(
