@@ -5,9 +5,9 @@
     PYTHONPATH=. python benchmarks/run.py --dask         # also: 8 files on a local Dask cluster, 1 vs 2 workers
 
 Every measurement is a fresh process; repetitions are interleaved (floor, bare read, scan, scan
-with page, pandas, CSV floor, CSV bare read, CSV scan, then again) and the medians reported. Wall time is measured
-around the process, CPU time (user + system) and peak RSS come from ``os.wait4`` on that
-process. Input files are generated once (benchmarks/night.py) and kept in ``--work``.
+with page, pandas, CSV floor, CSV bare read, CSV scan, then again) and the medians reported.
+Wall time is measured around the process, CPU time (user + system) and peak RSS come from
+``os.wait4`` on that process. Input files are generated once (benchmarks/night.py) and kept in ``--work``.
 This is a measurement, never a test: nothing here asserts a time.
 """
 

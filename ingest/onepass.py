@@ -222,7 +222,8 @@ def _whole_runs(in_run: pl.Series, new: pl.Series, first_key: int, carry: pl.Dat
     rows only), one that continues a dropped run must be arc off. Otherwise (a seam label held
     over arc-off rows, say) the batch is filtered to its arc-on rows."""
     n = len(in_run)
-    if n > 1 and bool((new.slice(1) | in_run.slice(1).eq(in_run.slice(0, n - 1))).not_().any()):
+    # past the first row, the arc state changes only where a run starts
+    if n > 1 and not (new.slice(1) | in_run.slice(1).eq(in_run.slice(0, n - 1))).all():
         return False
     if new[0]:
         return True
