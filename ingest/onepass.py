@@ -194,11 +194,19 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
         "n_samples": pl.Series(n_kept, dtype=pl.UInt32),
         "_n_all": pl.Series(end - first, dtype=pl.UInt32),
     }
-    out = pl.DataFrame(cols).with_row_index("_r").join(means.with_columns(pl.col("_r").cast(pl.UInt32)),
-                                                       on="_r", how="left", maintain_order="left")
+    # the means' rows are the runs that kept samples, in run order: put in place by position (a
+    # run without kept samples has null means and zero counts; a mean is never NaN, as only
+    # finite readings are kept)
+    r = means.get_column("_r").to_numpy()
+    for c in means.columns[1:]:
+        v = means.get_column(c)
+        full = np.zeros(runs, dtype=np.uint32) if c.startswith("_n") else np.full(runs, np.nan)
+        full[r] = v.to_numpy()
+        cols[c] = pl.Series(c, full, dtype=v.dtype) if c.startswith("_n") else pl.Series(c, full, nan_to_null=True)
+    out = pl.DataFrame(cols)
     ns = pl.col("n_samples")
     out = out.with_columns(
-        *((ns - pl.col(f"_n{c}").fill_null(0)).alias(f"{name}_bad")
+        *((ns - pl.col(f"_n{c}")).alias(f"{name}_bad")
           for c, name in (("_i", "current"), ("_v", "voltage"), ("_w", "wire_feed"))),
         pl.Series("max_gap_s", gap_max, nan_to_null=True), pl.Series("min_step_s", gap_min, nan_to_null=True),
     )
