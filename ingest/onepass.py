@@ -199,10 +199,10 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     # finite readings are kept)
     r = means.get_column("_r").to_numpy()
     for c in means.columns[1:]:
-        v = means.get_column(c)
-        full = np.zeros(runs, dtype=np.uint32) if c.startswith("_n") else np.full(runs, np.nan)
-        full[r] = v.to_numpy()
-        cols[c] = pl.Series(c, full, dtype=v.dtype) if c.startswith("_n") else pl.Series(c, full, nan_to_null=True)
+        count = c.startswith("_n")
+        full = np.zeros(runs, dtype=np.uint32) if count else np.full(runs, np.nan)
+        full[r] = means.get_column(c).to_numpy()
+        cols[c] = pl.Series(c, full, nan_to_null=not count)
     out = pl.DataFrame(cols)
     ns = pl.col("n_samples")
     out = out.with_columns(
