@@ -7,6 +7,7 @@ the units checks are common practice for GMAW, no source.
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 from pathlib import Path
@@ -155,26 +156,49 @@ def test_file_changing_while_read_is_skipped_then_read_next_run(tmp_path, cfg, m
     record("bad_input", "file changing while read", "skipped, read next run", CHANGED)
 
 
-def test_same_size_rewrite_caught_by_checksum(tmp_path, cfg, monkeypatch):
-    """A rewrite that keeps size and (coarse) mtime is still caught by the checksum."""
-    import os
-
-    import monitor.pipeline as pipeline
-
-    p = tmp_path / "rewrite.csv"
-    good_frame(np.random.default_rng(4), "TB7-0556").write_csv(p)
-    st = p.stat()
-    real = pipeline._collect
+def _rewrite_keeping_mtime(real, st):
+    """A ``_collect`` that rewrites one byte of the file after reading it, same size, and sets its
+    modification time back."""
 
     def rewrite(path, cfg_, **kw):
         got = real(path, cfg_, **kw)
+        # a long file's read takes long; the kernel stamps times from a coarse clock (a few ms)
+        time.sleep(0.05)
         data = bytearray(path.read_bytes())
         data[-3] = ord("9") if data[-3] != ord("9") else ord("8")
         path.write_bytes(bytes(data))
         os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
         return got
 
-    monkeypatch.setattr(pipeline, "_collect", rewrite)
+    return rewrite
+
+
+def test_same_size_rewrite_caught_by_checksum(tmp_path, cfg, monkeypatch):
+    """A rewrite of a short file that keeps size and (coarse) mtime is still caught by the
+    checksum, even where the status-change time does not show it (it is left out of the stat key
+    here, as on a filesystem with coarse times)."""
+    import monitor.pipeline as pipeline
+
+    p = tmp_path / "rewrite.csv"
+    good_frame(np.random.default_rng(4), "TB7-0556").write_csv(p)
+    monkeypatch.setattr(pipeline, "_collect", _rewrite_keeping_mtime(pipeline._collect, p.stat()))
+    monkeypatch.setattr(pipeline, "_stat_key", lambda path: (path.stat().st_size, path.stat().st_mtime_ns))
+    df, rec = scan_file(p, cfg)
+    assert df is None and rec.error == CHANGED
+
+
+@pytest.mark.skipif(os.name == "nt", reason="st_ctime_ns is the creation time on Windows")
+def test_long_file_rewrite_keeping_mtime_caught_by_status_change_time(tmp_path, cfg, monkeypatch):
+    """A file of RECHECK_BELOW bytes or more is not checksummed again: a same-size rewrite that
+    sets the modification time back is caught by the status-change time, which POSIX says every
+    write and every utimensat() marks for update (IEEE Std 1003.1, <sys/stat.h> and utimensat,
+    from memory)."""
+    import monitor.pipeline as pipeline
+
+    monkeypatch.setattr(pipeline, "RECHECK_BELOW", 0)  # every file counts as long
+    p = tmp_path / "rewrite.csv"
+    good_frame(np.random.default_rng(4), "TB7-0556").write_csv(p)
+    monkeypatch.setattr(pipeline, "_collect", _rewrite_keeping_mtime(pipeline._collect, p.stat()))
     df, rec = scan_file(p, cfg)
     assert df is None and rec.error == CHANGED
 
