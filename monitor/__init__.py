@@ -14,3 +14,10 @@ __version__ = "0.1.0"
 # back in cost about a third of its CPU time (system time). Keep freed pages 10 s for reuse
 # (jemalloc's documented default). Read once, when polars first loads; a value set by the user wins.
 os.environ.setdefault("_RJEM_MALLOC_CONF", "dirty_decay_ms:10000,muzzy_decay_ms:10000")
+
+# numpy's bundled OpenBLAS starts a worker thread per core when numpy is imported, and each spins
+# on the CPU (about 0.1 s) waiting for work that never comes: nothing here is a large matrix
+# product (the calibration fits are a few columns wide). On a 2-core machine that spin takes the
+# core the file is being decoded on. One BLAS thread, unless the user set it; read once, when
+# numpy first loads.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
