@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import json
 import platform
 import sys
@@ -15,7 +16,7 @@ import polars as pl
 from monitor import __version__
 from monitor.config import Config, ConfigError, load_config
 
-__all__ = ["main", "run_scan"]
+__all__ = ["entry", "main", "run_scan"]
 
 EXIT_OK, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
 EXIT_BUSY, EXIT_WRITE = 3, 4  # another scan holds the lock; results could not be written (previous kept)
@@ -285,5 +286,18 @@ from monitor.cli_drift import history_cmd, limits_cmd, tune_cmd  # noqa: E402
 main.add_command(history_cmd); main.add_command(limits_cmd); main.add_command(tune_cmd)  # noqa: E702
 
 
-if __name__ == "__main__":  # pragma: no cover
+def entry() -> None:
+    """The ``ctwd`` program (``python -m monitor.cli``): :func:`main` in a process of its own.
+
+    The modules imported by now (polars, numpy, click, ...) live as long as the process, so they
+    are moved out of reach of Python's cyclic garbage collector (``gc.freeze``): its full
+    collections would otherwise walk all of them again, holding the GIL while the reader and
+    reducer threads wait on it. Not done by :func:`main` itself, which tests and callers run in
+    their own processes.
+    """
+    gc.freeze()
     main()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    entry()
