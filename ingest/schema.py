@@ -57,6 +57,14 @@ class ExportSpec:
     tip_change: str | None = None  # optional marker column: nonzero / "true" after a tip change
 
 
+#: Times closer than this [s] to a trim edge or to the minimum duration count as on it. Times are
+#: float seconds, and polars and numpy may round the same sample's time differently in the last
+#: bit (a division by a constant done through its reciprocal, or not): a sample logged exactly on
+#: an edge, the usual case when trims are whole multiples of the sample period, is then inside
+#: the window, or the seam long enough, however its time was rounded. Far below any sample period.
+EDGE_TOL_S = 1e-9
+
+
 @dataclass(frozen=True)
 class ArcSettings:
     """How arc-on stretches become seams (config/cell.toml, [arc]); SI units."""

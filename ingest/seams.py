@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from ingest.schema import ArcSettings
+from ingest.schema import EDGE_TOL_S, ArcSettings
 
 __all__ = ["seam_aggregates", "valid_reading", "arc_state", "AGGREGATE_COLUMNS"]
 
@@ -53,7 +53,8 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     Returns
     -------
     polars.LazyFrame
-        One row a seam. Means are over the trimmed window and over valid readings of each
+        One row a seam. Means are over the trimmed window (closed: a sample within
+        :data:`ingest.schema.EDGE_TOL_S` of an edge is inside) and over valid readings of each
         channel; ``*_bad`` count invalid readings (null, NaN, ≤ 0) in the window;
         ``current_sq_mean`` is ⟨I²⟩ in float64; ``power_mean`` is ⟨V·I⟩ over samples where both
         are valid; ``max_gap_s`` the longest step between kept samples, ``min_step_s`` the
@@ -80,7 +81,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     t = pl.col("t")
     t0 = t.min().over("seam_key")
     t1 = t.max().over("seam_key")
-    keep = (t >= t0 + arc.trim_start) & (t <= t1 - arc.trim_end)
+    keep = (t >= t0 + (arc.trim_start - EDGE_TOL_S)) & (t <= t1 - (arc.trim_end - EDGE_TOL_S))
     lf = lf.with_columns(t0.alias("_t0"), t1.alias("_t1"), keep.alias("_keep"))
 
     k = pl.col("_keep")
@@ -114,7 +115,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         *([pl.col("tip_change").any()] if has_marker else []),
     )
     if not labelled:
-        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration)
+        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration - EDGE_TOL_S)
     agg = agg.sort("start_s")
     if not labelled:
         number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))

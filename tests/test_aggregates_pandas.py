@@ -6,7 +6,8 @@ the engine's fallback for a recurring label).
 
 Reference: pandas (a reference library) doing the same arithmetic the docstring of
 ingest.seams.seam_aggregates states — arc-on where current > threshold (a null current carries
-the previous state), trim the first ``trim_start`` and last ``trim_end`` seconds of each seam,
+the previous state), trim the first ``trim_start`` and last ``trim_end`` seconds of each seam
+(a sample within 1 ns of an edge is kept: the window is closed whatever the rounding of its time),
 means over valid readings (present, finite, > 0), ⟨I²⟩ over the same current samples, ⟨V·I⟩
 where both are valid, the longest step between kept samples. Simulated files carry the
 simulator's short-circuit ripple, noise, arc-start ramp, crater fill and a channel dropout.
@@ -28,6 +29,7 @@ from monitor.config import load_config
 from monitor.simulate import SeamPlan, simulate_log
 
 ROOT = Path(__file__).resolve().parent.parent
+EDGE = 1e-9  # [s], the stated tolerance on the trim window's edges and the minimum duration
 CFG = load_config(ROOT / "config")
 ARC = CFG.cell.arc
 
@@ -82,9 +84,9 @@ def _pandas_aggregates(path: Path, labelled: bool) -> pd.DataFrame:
     rows = []
     for key, g in d.groupby("key", sort=False):
         t0, t1 = g["t"].min(), g["t"].max()
-        if not labelled and t1 - t0 < ARC.min_duration:
+        if not labelled and t1 - t0 < ARC.min_duration - EDGE:
             continue
-        k = g[(g["t"] >= t0 + ARC.trim_start) & (g["t"] <= t1 - ARC.trim_end)]
+        k = g[(g["t"] >= t0 + ARC.trim_start - EDGE) & (g["t"] <= t1 - ARC.trim_end + EDGE)]
         i_ok, v_ok = _valid(k["i"]), _valid(k["v"])
         steps = k["t"].diff().dropna()
         rows.append({

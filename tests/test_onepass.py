@@ -376,3 +376,35 @@ def test_labels_over_arc_off_rows_give_the_whole_file_forms_seams_at_any_batch_s
     for c in ("start_s", "arc_time_s", "used_time_s", "max_gap_s", "min_step_s", "current_mean", "current_sq_mean",
               "voltage_mean", "power_mean", "wire_feed_mean"):
         np.testing.assert_allclose(got[c].to_numpy(), want[c].to_numpy(), rtol=1e-12, equal_nan=True)
+
+
+@pytest.mark.parametrize("row_group", [3, 7, 9])
+def test_a_sample_exactly_on_a_trim_edge_is_inside_the_window_in_every_form(tmp_path, row_group):
+    # Trims are usually whole multiples of the sample period, so samples fall exactly on the
+    # window's edges; such a sample is inside the window (common practice, no source: a window
+    # [a, b] of a seam's arc-on time is read as closed). The two forms may round the same time
+    # one ulp apart (0.007 against 0.006999999999999999, see above); they must still agree.
+    # Here: arc on at 1..7 ms, trims 4 ms and 2 ms, so the window is [5 ms, 5 ms], one sample.
+    from ingest.reader import scan_samples
+    from ingest.schema import ArcSettings
+    from ingest.seams import seam_aggregates
+
+    n = 9
+    lab = [None] + ["S1"] * 7 + [None]
+    cur = [0.3] + [200.0] * 7 + [0.3]
+    df = pl.DataFrame({
+        "time": pl.Series(1_700_000_000_000 + np.arange(n, dtype=np.int64)).cast(pl.Datetime("ms", "UTC")),
+        "serial": "P-1",
+        "seam": pl.Series(lab, dtype=pl.String),
+        "current_a": cur,
+        "voltage_v": [0.4] + [24.0] * 7 + [0.4],
+        "wfs_m_min": [0.0] + [9.0] * 7 + [0.0],
+        "travel_mm_s": [0.0] + [8.0] * 7 + [0.0],
+    })
+    path = tmp_path / "edge.parquet"
+    df.write_parquet(path, row_group_size=row_group)
+    arc = ArcSettings(trim_start=0.004, trim_end=0.002, min_duration=0.001)
+    got = aggregate_file(path, SPEC, arc, chunk_rows=row_group).aggregates
+    want = seam_aggregates(scan_samples(path, SPEC).frame, arc, labelled=True).collect()
+    for form in (got, want):
+        assert form.select("seam", "n_samples", "n_trimmed").rows() == [("S1", 1, 6)]
