@@ -34,7 +34,7 @@ import numpy as np
 import polars as pl
 
 from ingest.reader import CHECK_COMBINE, HARD_LIMITS, IngestError, Samples, file_format, scan_samples
-from ingest.schema import EDGE_TOL_S, ArcSettings
+from ingest.schema import ArcSettings
 from ingest.seams import AGGREGATE_COLUMNS, arc_state, seam_aggregates, valid_reading
 
 __all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS", "CSV_CHUNK_ROWS"]
@@ -162,8 +162,8 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     first, end = bounds[:-1][held], bounds[1:][held]  # each run's first row, and one past its last
     start_s, t1 = tn[first], tn[end - 1]
     # the window [start + trim_start, end - trim_end], as a block of rows of each run
-    a = np.clip(np.searchsorted(tn, start_s + (arc.trim_start - EDGE_TOL_S), side="left"), first, end)
-    b = np.clip(np.searchsorted(tn, t1 - (arc.trim_end - EDGE_TOL_S), side="right"), a, end)
+    a = np.clip(np.searchsorted(tn, start_s + arc.trim_start_edge, side="left"), first, end)
+    b = np.clip(np.searchsorted(tn, t1 - arc.trim_end_edge, side="right"), a, end)
     runs = len(first)
     blocks = np.repeat(np.arange(3 * runs, dtype=np.int32), np.stack([a - first, b - a, end - b], axis=1).ravel())
     chans = df.select(pl.Series("_g", blocks).set_sorted(),
@@ -273,8 +273,8 @@ def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl
     lens = got.get_column("_len").to_numpy()
     bounds = got.select("_key", "start_s", "_t1")
     # the bounds broadcast back by repetition
-    t0 = pl.Series(np.repeat(bounds.get_column("start_s").to_numpy() + (arc.trim_start - EDGE_TOL_S), lens))
-    t1 = pl.Series(np.repeat(bounds.get_column("_t1").to_numpy() - (arc.trim_end - EDGE_TOL_S), lens))
+    t0 = pl.Series(np.repeat(bounds.get_column("start_s").to_numpy() + arc.trim_start_edge, lens))
+    t1 = pl.Series(np.repeat(bounds.get_column("_t1").to_numpy() - arc.trim_end_edge, lens))
     df = df.with_columns(((tt >= t0) & (tt <= t1)).alias("_keep"))
     kk = pl.col("_keep")
     sid = pl.col("_key")
@@ -336,7 +336,7 @@ def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFr
         agg = agg.with_columns((pl.col("serial").fill_null("") + _KEY + pl.col("seam")).alias("seam_key"))
     else:
         agg = agg.with_columns(pl.col("_key").cast(pl.String).alias("seam_key"))
-        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration - EDGE_TOL_S)
+        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration_edge)
     agg = agg.sort("start_s", maintain_order=True)
     if not labelled:
         number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))

@@ -75,3 +75,21 @@ class ArcSettings:
     min_duration: float = 1.0  # s: shorter arc-on stretches are not seams
     max_gap: float = 0.25  # s: a gap between samples longer than this inside a seam is a dropout
     max_dropout_fraction: float = 0.02  # a channel null/invalid on more than this share -> invalid
+
+    # What comparisons use, so that a sample on an edge is inside however its time was rounded
+    # (:data:`EDGE_TOL_S`): keep t >= start + trim_start_edge and t <= end - trim_end_edge; a
+    # seam is long enough when its arc-on time >= min_duration_edge.
+    @property
+    def trim_start_edge(self) -> float:
+        """``trim_start`` less :data:`EDGE_TOL_S` [s]."""
+        return self.trim_start - EDGE_TOL_S
+
+    @property
+    def trim_end_edge(self) -> float:
+        """``trim_end`` less :data:`EDGE_TOL_S` [s]."""
+        return self.trim_end - EDGE_TOL_S
+
+    @property
+    def min_duration_edge(self) -> float:
+        """``min_duration`` less :data:`EDGE_TOL_S` [s]."""
+        return self.min_duration - EDGE_TOL_S

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from ingest.schema import EDGE_TOL_S, ArcSettings
+from ingest.schema import ArcSettings
 
 __all__ = ["seam_aggregates", "valid_reading", "arc_state", "AGGREGATE_COLUMNS"]
 
@@ -81,7 +81,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
     t = pl.col("t")
     t0 = t.min().over("seam_key")
     t1 = t.max().over("seam_key")
-    keep = (t >= t0 + (arc.trim_start - EDGE_TOL_S)) & (t <= t1 - (arc.trim_end - EDGE_TOL_S))
+    keep = (t >= t0 + arc.trim_start_edge) & (t <= t1 - arc.trim_end_edge)
     lf = lf.with_columns(t0.alias("_t0"), t1.alias("_t1"), keep.alias("_keep"))
 
     k = pl.col("_keep")
@@ -115,7 +115,7 @@ def seam_aggregates(samples: pl.LazyFrame, arc: ArcSettings, labelled: bool) -> 
         *([pl.col("tip_change").any()] if has_marker else []),
     )
     if not labelled:
-        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration - EDGE_TOL_S)
+        agg = agg.filter(pl.col("arc_time_s") >= arc.min_duration_edge)
     agg = agg.sort("start_s")
     if not labelled:
         number = pl.int_range(1, pl.len() + 1).over(pl.col("serial").fill_null(""))

@@ -122,7 +122,6 @@ def reference_seams(paths: list[Path], cfg: Config) -> tuple[pl.DataFrame, list[
     logging gap, timestamps backwards) are left out; the part is not needed here.
     """
     from ingest.discover import discover
-    from ingest.schema import EDGE_TOL_S
     from monitor.pipeline import scan_file
 
     files, problems = discover(paths)
@@ -142,7 +141,7 @@ def reference_seams(paths: list[Path], cfg: Config) -> tuple[pl.DataFrame, list[
     seams = pl.concat(frames, how="diagonal_relaxed")
     n = pl.col("n_samples").cast(pl.Float64)
     bad = (
-        (pl.col("n_samples") == 0) | (pl.col("arc_time_s") < arc.min_duration - EDGE_TOL_S)
+        (pl.col("n_samples") == 0) | (pl.col("arc_time_s") < arc.min_duration_edge)
         | (pl.col("current_bad") > arc.max_dropout_fraction * n) | (pl.col("wire_feed_bad") > arc.max_dropout_fraction * n)
         | (pl.col("max_gap_s").fill_null(0) > arc.max_gap) | (pl.col("min_step_s").fill_null(0) < 0)
         | pl.col("current_mean").is_null() | pl.col("wire_feed_mean").is_null()

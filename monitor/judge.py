@@ -6,7 +6,7 @@ import math
 
 import polars as pl
 
-from ingest.schema import EDGE_TOL_S, ArcSettings
+from ingest.schema import ArcSettings
 from monitor.estimate import Z95
 
 __all__ = ["judge", "STATUSES", "CTWD_RANGE_M", "CURRENT_RANGE_A", "VOLTAGE_RANGE_V", "WFS_RANGE_M_S"]
@@ -32,7 +32,7 @@ def _reason_invalid(r: dict, arc: ArcSettings) -> str | None:
     n = r["n_samples"] or 0
     if n == 0 or (r["used_time_s"] or 0) <= 0:
         return f"arc-on {r['arc_time_s'] or 0:.2f} s is shorter than the trims ({arc.trim_start + arc.trim_end:.2f} s)"
-    if r["arc_time_s"] < arc.min_duration - EDGE_TOL_S:
+    if r["arc_time_s"] < arc.min_duration_edge:
         return f"seam too short: arc-on {r['arc_time_s']:.2f} s < {arc.min_duration:.2f} s"
     if r["min_step_s"] is not None and r["min_step_s"] < 0:
         return "timestamps go backwards inside the seam"
