@@ -37,7 +37,7 @@ from ingest.reader import CHECK_COMBINE, HARD_LIMITS, IngestError, Samples, file
 from ingest.schema import ArcSettings
 from ingest.seams import AGGREGATE_COLUMNS, arc_state, seam_aggregates, valid_reading
 
-__all__ = ["FilePass", "aggregate_file", "aggregate_samples", "CHUNK_ROWS", "CSV_CHUNK_ROWS"]
+__all__ = ["FilePass", "aggregate_file", "aggregate_samples", "parquet_windows", "CHUNK_ROWS", "CSV_CHUNK_ROWS"]
 
 #: Rows per batch of a Parquet file (whole row groups, at least this many). About 100 MB of
 #: canonical columns; large enough that per-batch overhead is negligible, small enough that a file
@@ -373,23 +373,29 @@ def _batches(samples: Samples, chunk_rows: int | None) -> Iterator[pl.DataFrame]
     plan = samples.plan
     path = samples.path
     if path is not None and file_format(path) == "parquet":
-        import pyarrow.parquet as pq
-
-        chunk_rows = chunk_rows or CHUNK_ROWS
-        meta = pq.ParquetFile(path).metadata
-        windows: list[tuple[int, int]] = []
-        off = n = 0
-        for i in range(meta.num_row_groups):
-            n += meta.row_group(i).num_rows
-            if n >= chunk_rows or i == meta.num_row_groups - 1:
-                if n:
-                    windows.append((off, n))
-                off, n = off + n, 0
         source = plan.source
-        yield from _read_ahead([lambda w=w: source.slice(*w).collect() for w in windows])
+        yield from _read_ahead([lambda w=w: source.slice(*w).collect() for w in parquet_windows(path, chunk_rows)])
         return
     chunk_rows = chunk_rows or CSV_CHUNK_ROWS
     yield from _prefetch(plan.source.collect_batches(chunk_size=chunk_rows, maintain_order=True))
+
+
+def parquet_windows(path: Path, chunk_rows: int | None = None) -> list[tuple[int, int]]:
+    """(first row, rows) of each window of whole row groups that a Parquet file is read in: at
+    least ``chunk_rows`` rows (default :data:`CHUNK_ROWS`) or one row group each, in file order."""
+    import pyarrow.parquet as pq
+
+    chunk_rows = chunk_rows or CHUNK_ROWS
+    meta = pq.ParquetFile(path).metadata
+    windows: list[tuple[int, int]] = []
+    off = n = 0
+    for i in range(meta.num_row_groups):
+        n += meta.row_group(i).num_rows
+        if n >= chunk_rows or i == meta.num_row_groups - 1:
+            if n:
+                windows.append((off, n))
+            off, n = off + n, 0
+    return windows
 
 
 #: Parquet windows decoded at once, and read ahead of the one being aggregated.
