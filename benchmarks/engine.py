@@ -19,6 +19,7 @@ development VM), not by a single wall time of a whole scan. A measurement, not a
 from __future__ import annotations
 
 import argparse
+import gc
 import os
 import statistics
 import sys
@@ -28,11 +29,14 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
+# monitor first, as in the ctwd program: its __init__ sets the allocator's and BLAS's environment
+# before polars and numpy load
+from monitor.config import load_config  # noqa: E402, I001
+
 import polars as pl  # noqa: E402
 
 from ingest import onepass  # noqa: E402
 from ingest.reader import scan_samples  # noqa: E402
-from monitor.config import load_config  # noqa: E402
 
 
 def _timed(fn) -> tuple[float, float]:
@@ -66,6 +70,7 @@ def main() -> None:
     def engine() -> None:
         seams.append(onepass.aggregate_samples(samples, cfg.cell.arc).aggregates.height)
 
+    gc.freeze()  # as the ctwd program does once its modules are loaded (monitor.cli.entry)
     real = onepass._batches
     onepass._batches = lambda _samples, _chunk: iter(frames)  # the engine over the frames in memory
     try:

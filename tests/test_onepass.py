@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import polars as pl
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from ingest.onepass import aggregate_file
@@ -408,3 +408,65 @@ def test_a_sample_exactly_on_a_trim_edge_is_inside_the_window_in_every_form(tmp_
     want = seam_aggregates(scan_samples(path, SPEC).frame, arc, labelled=True).collect()
     for form in (got, want):
         assert form.select("seam", "n_samples", "n_trimmed").rows() == [("S1", 1, 6)]
+
+
+_LABELS = ["TB7-tow-bracket", "TB7-row-bracket", "TB7-tow-bracket-LH", "SR40-seat-rail", "S1", "", "cell-3 long label ünïcode"]
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(runs=st.lists(st.tuples(st.sampled_from([*_LABELS, None]), st.integers(1, 120)), min_size=1, max_size=12),
+       before=st.sampled_from([*_LABELS, None]), first_batch=st.booleans(), cut=st.integers(0, 40),
+       via=st.sampled_from(["parquet", "csv", "memory"]))
+@example(runs=[("TB7-tow-bracket", 50), ("TB7-row-bracket", 50)], before=None, first_batch=False, cut=0, via="parquet")
+@example(runs=[("TB7-tow-bracket", 50), ("TB7-row-bracket", 50)], before=None, first_batch=False, cut=3, via="csv")
+@example(runs=[("TB7-tow-bracket", 50), ("", 20), (None, 20), ("", 20)], before=None, first_batch=True, cut=0,
+         via="parquet")
+def test_text_changes_equal_polars_string_comparison(tmp_path, runs, before, first_batch, cut, via):
+    # Reference: polars' own string comparison of each row with the row before (ne_missing, a
+    # null equal to a null), the first row with the previous batch's last value. The engine takes
+    # a shortcut through the string views of long values, which must not change any answer,
+    # whether the column was decoded from a Parquet dictionary (rows share their bytes), parsed
+    # from CSV (every row has bytes of its own) or built in memory, and for a batch cut out of a
+    # longer column (a view array with an offset).
+    from ingest.onepass import _changed
+
+    values = [v for v, k in runs for _ in range(k)]  # labels come in runs, as a seam's rows do
+    col = pl.DataFrame({"part": pl.Series(values, dtype=pl.String)})
+    if via == "parquet":
+        col.write_parquet(tmp_path / "t.parquet")
+        col = pl.read_parquet(tmp_path / "t.parquet")
+    elif via == "csv":
+        col.write_csv(tmp_path / "t.csv")
+        col = pl.read_csv(tmp_path / "t.csv", schema={"part": pl.String})
+    s = col.get_column("part").slice(min(cut, col.height - 1))
+    got = _changed(s, before, first_batch)
+    prev = pl.concat([pl.Series([before], dtype=pl.String), s.slice(0, len(s) - 1)])
+    want = s.ne_missing(prev)
+    if first_batch:
+        want[0] = True
+    assert got.name == "_c_part"
+    assert got.to_list() == want.to_list()
+
+
+def test_text_changes_of_a_dictionary_decoded_column_take_the_view_shortcut(tmp_path):
+    # The shortcut is taken where it pays (a long label decoded from a Parquet dictionary: few
+    # view changes), and its answer is the plain comparison's.
+    from ingest import onepass
+
+    parts = np.array(["TB7-tow-bracket", "SR40-seat-rail-LH"])[(np.arange(20_000) // 3000) % 2]
+    pl.DataFrame({"part": parts}).write_parquet(tmp_path / "p.parquet")
+    s = pl.read_parquet(tmp_path / "p.parquet").get_column("part")
+    calls = []
+    real = pl.Series.ne_missing
+
+    def spy(self, other):
+        calls.append(len(self))
+        return real(self, other)
+
+    pl.Series.ne_missing = spy
+    try:
+        got = onepass._changed(s, "TB7-tow-bracket", False)
+    finally:
+        pl.Series.ne_missing = real
+    assert np.flatnonzero(got.to_numpy()).tolist() == list(range(3000, 20_000, 3000))
+    assert max(calls) < 100  # the first row and the candidates, not the whole column
