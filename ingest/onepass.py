@@ -23,6 +23,7 @@ window spans the whole seam.
 
 from __future__ import annotations
 
+import math
 import queue
 import threading
 from collections.abc import Callable, Iterator
@@ -35,7 +36,7 @@ import polars as pl
 
 from ingest.reader import CHECK_COMBINE, HARD_LIMITS, IngestError, Samples, file_format, scan_samples
 from ingest.schema import ArcSettings
-from ingest.seams import AGGREGATE_COLUMNS, arc_state, seam_aggregates, valid_reading
+from ingest.seams import AGGREGATE_COLUMNS, arc_state, seam_aggregates
 
 __all__ = ["FilePass", "aggregate_file", "aggregate_samples", "parquet_windows", "CHUNK_ROWS", "CSV_CHUNK_ROWS"]
 
@@ -176,11 +177,13 @@ def _masked_means() -> list[pl.Expr]:
 
 
 def _valid_kept(col: str) -> pl.Expr:
-    """``col`` where its reading is valid, else null. A canonical channel with plausibility limits
-    is null or finite (ingest.reader.HARD_LIMITS), so "valid" is just > 0 there (a null compares
-    null: not kept)."""
+    """``col`` where its reading is valid (:func:`ingest.seams.valid_reading`), else null. A
+    canonical channel with plausibility limits is null or finite (ingest.reader.HARD_LIMITS), so
+    "valid" is just > 0 there (a null compares null: not kept). Any other is tested as
+    0 < x < inf: polars orders NaN above every number, so a NaN fails the second test, and two
+    comparisons cost less than ``is_finite``."""
     c = pl.col(col)
-    return pl.when((c > 0) if col in HARD_LIMITS else valid_reading(col)).then(c)
+    return pl.when((c > 0) if col in HARD_LIMITS else (c > 0) & (c < math.inf)).then(c)
 
 
 def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: ArcSettings,

@@ -470,3 +470,18 @@ def test_text_changes_of_a_dictionary_decoded_column_take_the_view_shortcut(tmp_
         pl.Series.ne_missing = real
     assert np.flatnonzero(got.to_numpy()).tolist() == list(range(3000, 20_000, 3000))
     assert max(calls) < 100  # the first row and the candidates, not the whole column
+
+
+def test_a_channel_without_limits_keeps_exactly_the_valid_readings():
+    # The engine tests a channel without plausibility limits (travel speed) as 0 < x < inf; it must
+    # keep exactly what ingest.seams.valid_reading (present, finite, positive) keeps, for the IEEE
+    # 754 special values (NaN, both infinities, both zeros, a subnormal) as well as plain numbers.
+    from ingest.onepass import _valid_kept
+    from ingest.seams import valid_reading
+
+    x = [None, float("nan"), float("inf"), -float("inf"), 0.0, -0.0, -1.0, 5e-324, 1e-310, 0.008, 1e300]
+    d = pl.DataFrame({"travel_speed": pl.Series(x, dtype=pl.Float64)})
+    got = d.select(_valid_kept("travel_speed")).to_series()
+    want = d.select(pl.when(valid_reading("travel_speed")).then(pl.col("travel_speed"))).to_series()
+    assert got.is_null().to_list() == want.is_null().to_list() == [True] * 7 + [False] * 4
+    assert got.equals(want, null_equal=True)
