@@ -67,10 +67,11 @@ class FilePass:
 _INLINE_BYTES = 12
 
 
-def _changed(s: pl.Series, before: str | None, first_batch: bool) -> pl.Series:
+def _changed(s: pl.Series, before: str | None, first_batch: bool, views: bool = True) -> pl.Series:
     """True where text column ``s`` (a batch's) differs from the row before; the first row is
     compared with ``before`` (the previous batch's last value), or starts a change in the first
-    batch. Named ``_c_<name>``.
+    batch. Named ``_c_<name>``. ``views=False`` skips the shortcut below (a text export, whose
+    rows never share their bytes).
 
     Long values (part names, say) are compared through their string views first: a Parquet
     column decoded from a dictionary points every row of a value at the same bytes, so two rows
@@ -86,7 +87,7 @@ def _changed(s: pl.Series, before: str | None, first_batch: bool) -> pl.Series:
     if n == 1:
         return pl.Series(name, [first])
     candidates = None
-    if s.n_chunks() == 1:
+    if views and s.n_chunks() == 1:
         arr = s.to_arrow(compat_level=pl.CompatLevel.newest())
         views = np.frombuffer(arr.buffers()[1], dtype=np.uint64)[2 * arr.offset: 2 * (arr.offset + n)]
         if int(views[0]) & 0xFFFFFFFF > _INLINE_BYTES:  # little-endian: the length, then its prefix
@@ -551,6 +552,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
     time_col = plan.time_column
+    # a Parquet column decoded from a dictionary shares each value's bytes among its rows (_changed)
+    shared = samples.path is not None and file_format(samples.path) == "parquet"
     # channel counts from the columns themselves when every channel is numeric in the export
     fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
     try:
@@ -567,7 +570,8 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 got["dup_t"] = (got.get("dup_t") or 0) + 1
             prev_time = raw.get_column(time_col)[-1]
             txt = raw.select(*plan.text.values())
-            chg = pl.DataFrame([_changed(txt.get_column(k), last_text.get(k), offset == 0) for k in names]) if names else None
+            chg = (pl.DataFrame([_changed(txt.get_column(k), last_text.get(k), offset == 0, shared) for k in names])
+                   if names else None)
             pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
             b = plan.canonical(raw, origin, pos)
             if fast_checks:

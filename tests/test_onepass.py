@@ -446,6 +446,7 @@ def test_text_changes_equal_polars_string_comparison(tmp_path, runs, before, fir
         want[0] = True
     assert got.name == "_c_part"
     assert got.to_list() == want.to_list()
+    assert _changed(s, before, first_batch, views=False).to_list() == want.to_list()  # a text export's path
 
 
 def test_text_changes_of_a_dictionary_decoded_column_take_the_view_shortcut(tmp_path):
