@@ -82,8 +82,7 @@ def _changed(s: pl.Series, before: str | None, first_batch: bool, views: bool = 
     """
     n = len(s)
     name = f"_c_{s.name}"
-    head = s.head(1)
-    first = bool(first_batch or head.ne_missing(pl.Series([before], dtype=pl.String))[0])
+    first = first_batch or s[0] != before  # None for null: a null equals a null, as in ne_missing
     if n == 1:
         return pl.Series(name, [first])
     candidates = None
@@ -187,7 +186,7 @@ def _valid_kept(col: str) -> pl.Expr:
 
 
 def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: ArcSettings,
-                        has_marker: bool) -> pl.DataFrame:
+                        has_marker: bool) -> dict[str, np.ndarray]:
     """:func:`_reduce_runs` where time never goes backwards in ``df``: ``tn`` its ``t``, ``d`` the
     differences ``tn[j + 1] - tn[j]`` (one longer, the last unused).
 
@@ -196,6 +195,10 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     comes from those positions (numpy, exact: first/last values, extremes of differences, counts);
     the means are one group-by over the run's three blocks (before, inside, after the window),
     which polars groups by slices. Same values as the general form, floats to rounding.
+
+    Returns the runs' columns as arrays (those of the general form, in its order; NaN for null),
+    made one frame for the whole file by :func:`_runs_frame`: a frame of a few thousand rows a
+    batch cost about a third of this function's time to build and reshape.
     """
     key = df.get_column("_key").to_numpy()
     n = len(key)
@@ -213,9 +216,7 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
                       _valid_kept("current").alias("_i"), _valid_kept("voltage").alias("_v"),
                       _valid_kept("wire_feed").alias("_w"), _valid_kept("travel_speed").alias("_s"))
     means = (chans.group_by("_g", maintain_order=True)
-             .agg(*_masked_means(), *(pl.col(c).count().alias(f"_n{c}") for c in ("_i", "_v", "_w")))
-             .filter(pl.col("_g") % 3 == 1)
-             .select((pl.col("_g") // 3).alias("_r"), pl.exclude("_g")))
+             .agg(*_masked_means(), *(pl.col(c).count().alias(f"_n{c}") for c in ("_i", "_v", "_w"))))
     n_kept = b - a
     # steps between kept samples: t[j] - t[j-1] for j in (a, b), i.e. the differences d[a:b-1]
     has_step = n_kept >= 2
@@ -230,45 +231,53 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
     nonempty = n_kept > 0
     last_kept = np.maximum(b - 1, a)
     pos = df.get_column("_pos").to_numpy()
-    abs_t = df.get_column("_abs")
+    abs_t = df.get_column("_abs").to_numpy()
     cols = {
         "_key": key[first], "start_s": start_s, "_t1": t1,
         "_p0": pos[first], "_p1": pos[end - 1],
         # integer stored times (timestamps) rise with t, so a run's first is its least; float
         # seconds might not, to rounding, so they are searched
-        "_abs_min": pl.Series(abs_t.to_numpy()[first] if abs_t.dtype.is_integer()
-                              else np.minimum.reduceat(abs_t.to_numpy(), first), dtype=abs_t.dtype),
-        "_tk_min": pl.Series(np.where(nonempty, tn[np.minimum(a, n - 1)], np.nan), nan_to_null=True),
-        "_tk_max": pl.Series(np.where(nonempty, tn[np.minimum(last_kept, n - 1)], np.nan), nan_to_null=True),
-        "n_samples": pl.Series(n_kept, dtype=pl.UInt32),
-        "_n_all": pl.Series(end - first, dtype=pl.UInt32),
+        "_abs_min": abs_t[first] if abs_t.dtype.kind in "iu" else np.minimum.reduceat(abs_t, first),
+        "_tk_min": np.where(nonempty, tn[np.minimum(a, n - 1)], np.nan),
+        "_tk_max": np.where(nonempty, tn[np.minimum(last_kept, n - 1)], np.nan),
+        "n_samples": n_kept.astype(np.uint32),
+        "_n_all": (end - first).astype(np.uint32),
     }
     # the means' rows are the runs that kept samples, in run order: put in place by position (a
     # run without kept samples has null means and zero counts; a mean is never NaN, as only
     # finite readings are kept)
-    r = means.get_column("_r").to_numpy()
+    g = means.get_column("_g").to_numpy()
+    inside = g % 3 == 1  # the window's block of each run
+    r = g[inside] // 3
     for c in means.columns[1:]:
         count = c.startswith("_n")
         full = np.zeros(runs, dtype=np.uint32) if count else np.full(runs, np.nan)
-        full[r] = means.get_column(c).to_numpy()
-        cols[c] = pl.Series(c, full, nan_to_null=not count)
-    out = pl.DataFrame(cols)
-    ns = pl.col("n_samples")
-    out = out.with_columns(
-        *((ns - pl.col(f"_n{c}")).alias(f"{name}_bad")
-          for c, name in (("_i", "current"), ("_v", "voltage"), ("_w", "wire_feed"))),
-        pl.Series("max_gap_s", gap_max, nan_to_null=True), pl.Series("min_step_s", gap_min, nan_to_null=True),
-    )
+        full[r] = means.get_column(c).to_numpy()[inside]
+        cols[c] = full
+    for c, name in (("_i", "current"), ("_v", "voltage"), ("_w", "wire_feed")):
+        cols[f"{name}_bad"] = n_kept.astype(np.uint32) - cols.pop(f"_n{c}")
+    cols["max_gap_s"], cols["min_step_s"] = gap_max, gap_min
     if has_marker:
         marks = df.get_column("tip_change").to_numpy()
-        out = out.with_columns(pl.Series("tip_change", np.logical_or.reduceat(marks, first)))
+        cols["tip_change"] = np.logical_or.reduceat(marks, first)
     live = df.get_column("_live").gather(first).to_numpy()
     if not live.all():
-        out = out.filter(pl.Series(live))
-    return out.select("_key", "start_s", "_t1", "_p0", "_p1", "_abs_min", "_tk_min", "_tk_max", "n_samples", "_n_all",
-                      "current_mean", "current_sq_mean", "voltage_mean", "power_mean", "wire_feed_mean",
-                      "travel_speed_mean", "current_bad", "voltage_bad", "wire_feed_bad", "max_gap_s", "min_step_s",
-                      *(["tip_change"] if has_marker else []))
+        cols = {k: v[live] for k, v in cols.items()}
+    return cols
+
+
+def _runs_frame(parts: list[dict[str, np.ndarray]]) -> pl.DataFrame:
+    """One frame of the rows of :func:`_reduce_sorted_runs` (``parts`` in file order): NaN stands
+    for null in its float columns but ``start_s`` and ``_t1`` (never missing), counts are UInt32."""
+    cols = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    return pl.DataFrame([pl.Series(k, v, nan_to_null=k in _NULLABLE, dtype=_RUN_DTYPES.get(k))
+                         for k, v in cols.items()])
+
+
+#: Columns of a reduced run that are null where they do not apply (NaN in the arrays)
+_NULLABLE = frozenset({"_tk_min", "_tk_max", "current_mean", "current_sq_mean", "voltage_mean", "power_mean",
+                       "wire_feed_mean", "travel_speed_mean", "max_gap_s", "min_step_s"})
+_RUN_DTYPES = {k: pl.UInt32 for k in ("n_samples", "_n_all", "current_bad", "voltage_bad", "wire_feed_bad")}
 
 
 def _whole_runs(in_run: pl.Series, new: pl.Series, first_key: int, carry: pl.DataFrame | None) -> bool:
@@ -288,9 +297,11 @@ def _whole_runs(in_run: pl.Series, new: pl.Series, first_key: int, carry: pl.Dat
     return bool(in_run[0]) == carried
 
 
-def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl.DataFrame:
+def _reduce_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> dict[str, np.ndarray] | pl.DataFrame:
     """One row a run of ``df`` (complete runs, ``_key`` sorted, in file order) that is arc on
-    (``_live``); a batch kept whole also holds runs out of arc, dropped here."""
+    (``_live``); a batch kept whole also holds runs out of arc, dropped here. Arrays (time never
+    goes backwards, :func:`_reduce_sorted_runs`) or a frame (:func:`_reduce_any_runs`); see
+    :func:`_stack`."""
     tt = df.get_column("t")
     if tt.null_count() == 0:
         tn = tt.to_numpy()
@@ -357,10 +368,31 @@ def _reduce_any_runs(df: pl.DataFrame, arc: ArcSettings, has_marker: bool) -> pl
     return got.filter(pl.col("_live")).drop("_live")
 
 
-def _finish(parts: list[pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None, arc: ArcSettings,
-            labelled: bool, has_marker: bool, to_ts) -> pl.DataFrame:
+def _rows(part: dict[str, np.ndarray] | pl.DataFrame) -> int:
+    return part.height if isinstance(part, pl.DataFrame) else len(part["_key"])
+
+
+def _stack(parts: list[dict[str, np.ndarray] | pl.DataFrame]) -> pl.DataFrame:
+    """The reduced runs of every batch (:func:`_reduce_runs`), in file order, as one frame."""
+    frames: list[pl.DataFrame] = []
+    arrays: list[dict[str, np.ndarray]] = []
+    for part in parts:
+        if isinstance(part, pl.DataFrame):
+            if arrays:
+                frames.append(_runs_frame(arrays))
+                arrays = []
+            frames.append(part)
+        else:
+            arrays.append(part)
+    if arrays:
+        frames.append(_runs_frame(arrays))
+    return frames[0] if len(frames) == 1 else pl.concat(frames, how="vertical_relaxed")
+
+
+def _finish(parts: list[dict[str, np.ndarray] | pl.DataFrame], text: dict[str, _Text], labels: pl.DataFrame | None,
+            arc: ArcSettings, labelled: bool, has_marker: bool, to_ts) -> pl.DataFrame:
     extra = ["tip_change"] if has_marker else []
-    agg = pl.concat(parts, how="vertical_relaxed")
+    agg = _stack(parts)
     agg = agg.with_columns(to_ts(pl.col("_abs_min")).alias("start"))
     p0, p1 = agg.get_column("_p0").to_numpy(), agg.get_column("_p1").to_numpy()
     cols = {"part": text["part"].first_non_null(p0, p1) if "part" in text else None}
@@ -646,7 +678,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                     parts[-2].result()  # at most two batches being reduced: memory stays bounded
         if carry is not None and carry.height:
             parts.append(pool.submit(_reduce_runs, carry, arc, has_marker))
-        done = [got for f in parts if (got := f.result()).height]
+        done = [got for f in parts if _rows(got := f.result())]
     finally:
         pool.shutdown(wait=False, cancel_futures=True)
     if not quality:

@@ -214,12 +214,12 @@ def test_sorted_time_reduction_equals_the_general_form(df, trims):
     # The reduction used when time never goes backwards (positions, binary search, numpy
     # extremes) against the general one written in polars expressions: the same counts, bounds,
     # steps and flags exactly, and means to rounding.
-    from ingest.onepass import _reduce_any_runs, _reduce_sorted_runs
+    from ingest.onepass import _reduce_any_runs, _reduce_sorted_runs, _runs_frame
     from ingest.schema import ArcSettings
 
     arc = ArcSettings(trim_start=trims[0], trim_end=trims[1])
     tn = df["t"].to_numpy()
-    got = _reduce_sorted_runs(df, tn, np.append(np.diff(tn), 0.0), arc, True)
+    got = _runs_frame([_reduce_sorted_runs(df, tn, np.append(np.diff(tn), 0.0), arc, True)])
     want = _reduce_any_runs(df, arc, True)
     assert got.schema == want.schema
     means = [c for c in want.columns if c.endswith("_mean")]
