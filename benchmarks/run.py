@@ -180,11 +180,17 @@ def main() -> None:
     for fmt, name in (("Parquet", "ctwd scan --no-page"), ("CSV", "ctwd scan CSV --no-page")):
         got = med[name]["wall_s"] / med[f"bare read, 8 cols, {fmt}"]["wall_s"]
         print(f"{fmt}: scan / bare read of the columns it needs: {got:.2f}x")
+    # each repetition's scan against the floor measured just before it (same machine state): on a
+    # shared VM whose speed drifts, the spread of these says more than one ratio of medians
+    for name, ref in (("ctwd scan --no-page", "floor (polars, Parquet)"), ("ctwd scan CSV --no-page", "floor (polars, CSV)")):
+        pairs = sorted(s["wall_s"] / f["wall_s"] for s, f in zip(results[name], results[ref]))
+        print(f"{name} / {ref}, each repetition: median {statistics.median(pairs):.2f}x, "
+              f"range {pairs[0]:.2f}-{pairs[-1]:.2f}x")
     if a.dask:
         print(f"dask 2 workers vs 1: {med['8 files, dask local:1']['wall_s'] / med['8 files, dask local:2']['wall_s']:.2f}x; "
               f"--jobs 2 vs 1: {med['8 files, --jobs 1']['wall_s'] / med['8 files, --jobs 2']['wall_s']:.2f}x")
     if a.json:
-        a.json.write_text(json.dumps({"rows": rows, "reps": reps, "medians": med}, indent=2))
+        a.json.write_text(json.dumps({"rows": rows, "reps": reps, "medians": med, "runs": results}, indent=2))
 
 
 if __name__ == "__main__":
