@@ -134,6 +134,38 @@ def test_batch_size_changes_no_count_and_floats_only_in_rounding(tmp_path):
             np.testing.assert_allclose(got[c].to_numpy(), ref[c].to_numpy(), rtol=1e-13, atol=0, equal_nan=True)
 
 
+def test_a_batch_whose_time_goes_backwards_joins_the_sorted_ones_in_file_order(tmp_path, monkeypatch):
+    # Batches whose time never goes backwards are reduced to arrays, one whose time does to a
+    # frame (the general form); the file's seams come out in file order with the same values
+    # as the whole-file form (ingest.seams.seam_aggregates), whichever form reduced each batch.
+    from ingest import onepass
+    from ingest.reader import scan_samples
+    from ingest.seams import seam_aggregates
+
+    df = _night(tmp_path / "n.parquet")
+    # swap two samples inside the fifth seam: its batch takes the general form
+    i = 4 * 1700 + 200 + 1000
+    df.loc[[i, i + 1], "time"] = df.loc[[i + 1, i], "time"].to_numpy()
+    path = tmp_path / "back.parquet"
+    df.to_parquet(path, row_group_size=256)
+    forms = []
+    real_sorted, real_any = onepass._reduce_sorted_runs, onepass._reduce_any_runs
+    monkeypatch.setattr(onepass, "_reduce_sorted_runs", lambda *a: forms.append("sorted") or real_sorted(*a))
+    monkeypatch.setattr(onepass, "_reduce_any_runs", lambda *a: forms.append("any") or real_any(*a))
+    got = aggregate_file(path, SPEC, ARC, chunk_rows=1000).aggregates
+    assert forms.count("any") == 1 and forms.count("sorted") > 5
+    want = seam_aggregates(scan_samples(path, SPEC).frame, ARC, labelled=True).collect()
+    assert got.height == want.height == 9
+    assert got.get_column("serial").to_list() == sorted(got.get_column("serial").to_list())
+    floats = [c for c, t in want.schema.items() if t.is_float()]
+    assert got.drop(floats).equals(want.drop(floats), null_equal=True)
+    for c in floats:
+        np.testing.assert_allclose(got[c].to_numpy(), want[c].to_numpy(), rtol=1e-12, atol=0, equal_nan=True)
+    # the swapped pair is inside the fifth seam's window: its smallest step is negative
+    steps = got.get_column("min_step_s").to_list()
+    assert steps[4] < 0 <= min(steps[:4] + steps[5:])
+
+
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(chunk=st.integers(min_value=2, max_value=6000))
 def test_any_batch_size_finds_the_same_seams(tmp_path, chunk):
