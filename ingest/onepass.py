@@ -67,24 +67,24 @@ class FilePass:
 _INLINE_BYTES = 12
 
 
-def _changed(s: pl.Series, before: str | None, first_batch: bool, views: bool = True) -> pl.Series:
-    """True where text column ``s`` (a batch's) differs from the row before; the first row is
-    compared with ``before`` (the previous batch's last value), or starts a change in the first
-    batch. Named ``_c_<name>``. ``views=False`` skips the shortcut below (a text export, whose
-    rows never share their bytes).
+def _changes(s: pl.Series, before: str | None, first_batch: bool, views: bool = True) -> np.ndarray:
+    """Rows (positions in the batch, rising, int64) where text column ``s`` (a batch's) differs
+    from the row before; the first row is compared with ``before`` (the previous batch's last
+    value), or starts a change in the first batch. A null equals a null (polars' ``ne_missing``).
+    ``views=False`` skips the shortcut below (a text export, whose rows never share their bytes).
 
     Long values (part names, say) are compared through their string views first: a Parquet
     column decoded from a dictionary points every row of a value at the same bytes, so two rows
     whose 16-byte views are identical hold the same string, and only the few rows whose views
     differ from the row before are compared as strings (exact: every change is among them). A
     column whose rows all have bytes of their own (a CSV batch) is compared as strings whole.
-    Measured on the benchmark night in DEVELOPERS.md (the engine's CPU, about a tenth less).
+    Positions, not a mask: a batch has a few changes a seam, and everything that uses them
+    (run numbers, the values that start) picks those rows. Measured in DEVELOPERS.md.
     """
     n = len(s)
-    name = f"_c_{s.name}"
-    first = first_batch or s[0] != before  # None for null: a null equals a null, as in ne_missing
+    head = np.zeros(1 if first_batch or s[0] != before else 0, dtype=np.int64)  # None for null
     if n == 1:
-        return pl.Series(name, [first])
+        return head
     candidates = None
     if views and s.n_chunks() == 1:
         arr = s.to_arrow(compat_level=pl.CompatLevel.newest())
@@ -99,22 +99,20 @@ def _changed(s: pl.Series, before: str | None, first_batch: bool, views: bool = 
             if len(candidates) > n // 8:
                 candidates = None
     if candidates is None:
-        out = s.slice(1).ne_missing(s.slice(0, n - 1))
-        return pl.concat([pl.Series(name, [first]), out.alias(name)], rechunk=True)
-    mask = np.zeros(n, dtype=bool)
-    mask[0] = first
-    if len(candidates):
+        rest = s.slice(1).ne_missing(s.slice(0, n - 1)).arg_true().to_numpy().astype(np.int64) + 1
+    elif len(candidates):
         at = pl.Series(candidates, dtype=pl.UInt32)
-        mask[candidates[s.gather(at).ne_missing(s.gather(at - 1)).to_numpy()]] = True
-    return pl.Series(name, mask)
+        rest = candidates[s.gather(at).ne_missing(s.gather(at - 1)).to_numpy()]
+    else:
+        rest = candidates
+    return np.concatenate([head, rest]) if len(head) else rest
 
 
-def _run_keys(new: pl.Series, base: int) -> pl.Series:
-    """Run number of every row: ``base - 1`` plus the count of run starts (``new`` True) at or
-    before it. Built from the few start positions (the cumulative sum of a boolean column over a
-    batch costs ten times as much)."""
-    starts = new.arg_true().to_numpy()
-    lens = np.diff(np.concatenate(([0], starts, [len(new)])))
+def _run_keys(starts: np.ndarray, n: int, base: int) -> pl.Series:
+    """Run number of each of a batch's ``n`` rows: ``base - 1`` plus the count of run starts
+    (positions ``starts``, rising) at or before it. Built from the few start positions (the
+    cumulative sum of a boolean column over a batch costs ten times as much)."""
+    lens = np.diff(np.concatenate(([0], starts, [n])))
     return pl.Series("_key", np.repeat(np.arange(base - 1, base + len(starts), dtype=np.int64), lens))
 
 
@@ -123,13 +121,6 @@ def _own(s: pl.Series) -> pl.Series:
     the batch's whole text buffers (a CSV batch holds one per column); kept for the file's length,
     those would grow memory with the file. O(values kept), a handful a seam."""
     return pl.Series(s.name, s.to_list(), dtype=pl.String)
-
-
-def _positions(mask: pl.Series, offset: int) -> pl.Series:
-    """Row positions along the file where ``mask`` is true, in a buffer of their own. (A filter
-    whose kept rows are one block is a zero-copy slice, which keeps the batch's whole column
-    alive: kept for the file's length, such slices grew memory with the file.)"""
-    return mask.arg_true().cast(pl.Int64) + offset
 
 
 class _Text:
@@ -280,18 +271,20 @@ _NULLABLE = frozenset({"_tk_min", "_tk_max", "current_mean", "current_sq_mean", 
 _RUN_DTYPES = {k: pl.UInt32 for k in ("n_samples", "_n_all", "current_bad", "voltage_bad", "wire_feed_bad")}
 
 
-def _whole_runs(in_run: pl.Series, new: pl.Series, first_key: int, carry: pl.DataFrame | None) -> bool:
+def _whole_runs(in_run: pl.Series, new: np.ndarray, first_key: int, carry: pl.DataFrame | None) -> bool:
     """True when every run of a batch is arc on on all its rows or on none (a well-formed
     export), so the batch need not be filtered: each run is kept or dropped as a whole after its
-    reduction (``_live``). ``new`` marks the rows that start a run, ``first_key`` is the first
+    reduction (``_live``). ``new`` holds the rows that start a run (rising), ``first_key`` is the first
     row's run: a first row that continues the carried run must be arc on (the carry holds arc-on
     rows only), one that continues a dropped run must be arc off. Otherwise (a seam label held
     over arc-off rows, say) the batch is filtered to its arc-on rows."""
     n = len(in_run)
     # past the first row, the arc state changes only where a run starts
-    if n > 1 and not (new.slice(1) | in_run.slice(1).eq(in_run.slice(0, n - 1))).all():
-        return False
-    if new[0]:
+    if n > 1:
+        flips = (in_run.slice(1) != in_run.slice(0, n - 1)).arg_true().to_numpy().astype(np.int64) + 1
+        if len(flips) and not np.isin(flips, new).all():
+            return False
+    if len(new) and new[0] == 0:
         return True
     carried = carry is not None and carry.height > 0 and int(carry.get_column("_key")[-1]) == first_key
     return bool(in_run[0]) == carried
@@ -584,7 +577,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
     offset = 0  # rows before this batch
     key_base = 0  # run keys used so far
     time_col = plan.time_column
-    # a Parquet column decoded from a dictionary shares each value's bytes among its rows (_changed)
+    # a Parquet column decoded from a dictionary shares each value's bytes among its rows (_changes)
     shared = samples.path is not None and file_format(samples.path) == "parquet"
     # channel counts from the columns themselves when every channel is numeric in the export
     fast_checks = bool(plan.channels) and all(numeric for _a, _c, numeric in plan.channels)
@@ -602,8 +595,7 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 got["dup_t"] = (got.get("dup_t") or 0) + 1
             prev_time = raw.get_column(time_col)[-1]
             txt = raw.select(*plan.text.values())
-            chg = (pl.DataFrame([_changed(txt.get_column(k), last_text.get(k), offset == 0, shared) for k in names])
-                   if names else None)
+            chg = {k: _changes(txt.get_column(k), last_text.get(k), offset == 0, shared) for k in names}
             pos = pl.int_range(offset, offset + n, dtype=pl.Int64).alias("_pos")
             b = plan.canonical(raw, origin, pos)
             if fast_checks:
@@ -625,25 +617,24 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
             else:
                 b = b.with_columns(arc_state(arc, last_arc).alias("_arc"))
             for k in names:
-                m = chg.get_column(f"_c_{k}")
-                text[k].add(_positions(m, offset), txt.get_column(k).filter(m))
+                at = chg[k]
+                text[k].add(pl.Series(at + offset), txt.get_column(k).gather(at))
                 last_text[k] = txt.get_column(k)[-1]
             if labelled:
-                new = chg.get_column("_c_seam")
-                if "serial" in names:
-                    new = new | chg.get_column("_c_serial")
-                keys = _run_keys(new, key_base)
+                new = np.union1d(chg["seam"], chg["serial"]) if "serial" in names else chg["seam"]
+                keys = _run_keys(new, n, key_base)
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
                 # the runs starting in this batch are numbered key_base, key_base + 1, ..., keys[-1]
                 starts = pl.Series("_key", np.arange(key_base, int(keys[-1]) + 1, dtype=np.int64))
-                label_rows.append(pl.DataFrame([starts, _own(txt.get_column("seam").filter(new)),
-                                                (_own(txt.get_column("serial").filter(new)) if "serial" in names
+                label_rows.append(pl.DataFrame([starts, _own(txt.get_column("seam").gather(new)),
+                                                (_own(txt.get_column("serial").gather(new)) if "serial" in names
                                                  else pl.Series("serial", [None] * len(starts), dtype=pl.String))]))
             else:
                 arc_on = b.get_column("_arc")
                 first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
                 new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
-                keys = _run_keys(new, key_base)
+                new = new.arg_true().to_numpy().astype(np.int64)
+                keys = _run_keys(new, n, key_base)
                 in_run = arc_on
             key_base = int(keys[-1]) + 1
             last_arc = bool(b.get_column("_arc")[-1])
