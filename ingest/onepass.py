@@ -82,7 +82,7 @@ def _changes(s: pl.Series, before: str | None, first_batch: bool, views: bool = 
     (run numbers, the values that start) picks those rows. Measured in DEVELOPERS.md.
     """
     n = len(s)
-    head = np.zeros(1 if first_batch or s[0] != before else 0, dtype=np.int64)  # None for null
+    head = np.array([0] if first_batch or s[0] != before else [], dtype=np.int64)  # None for null
     if n == 1:
         return head
     candidates = None
@@ -246,7 +246,7 @@ def _reduce_sorted_runs(df: pl.DataFrame, tn: np.ndarray, d: np.ndarray, arc: Ar
         full[r] = means.get_column(c).to_numpy()[inside]
         cols[c] = full
     for c, name in (("_i", "current"), ("_v", "voltage"), ("_w", "wire_feed")):
-        cols[f"{name}_bad"] = n_kept.astype(np.uint32) - cols.pop(f"_n{c}")
+        cols[f"{name}_bad"] = cols["n_samples"] - cols.pop(f"_n{c}")
     cols["max_gap_s"], cols["min_step_s"] = gap_max, gap_min
     if has_marker:
         marks = df.get_column("tip_change").to_numpy()
@@ -271,19 +271,24 @@ _NULLABLE = frozenset({"_tk_min", "_tk_max", "current_mean", "current_sq_mean", 
 _RUN_DTYPES = {k: pl.UInt32 for k in ("n_samples", "_n_all", "current_bad", "voltage_bad", "wire_feed_bad")}
 
 
-def _whole_runs(in_run: pl.Series, new: np.ndarray, first_key: int, carry: pl.DataFrame | None) -> bool:
+def _flips(x: pl.Series) -> np.ndarray:
+    """Rows (past the first, rising, int64) where boolean column ``x`` differs from the row before."""
+    n = len(x)
+    return (x.slice(1) != x.slice(0, n - 1)).arg_true().to_numpy().astype(np.int64) + 1 if n > 1 else np.empty(0, np.int64)
+
+
+def _whole_runs(in_run: pl.Series, flips: np.ndarray, new: np.ndarray, first_key: int,
+                carry: pl.DataFrame | None) -> bool:
     """True when every run of a batch is arc on on all its rows or on none (a well-formed
     export), so the batch need not be filtered: each run is kept or dropped as a whole after its
-    reduction (``_live``). ``new`` holds the rows that start a run (rising), ``first_key`` is the first
+    reduction (``_live``). ``flips`` holds the rows past the first where ``in_run`` changes
+    (:func:`_flips`), ``new`` the rows that start a run (both rising), ``first_key`` is the first
     row's run: a first row that continues the carried run must be arc on (the carry holds arc-on
     rows only), one that continues a dropped run must be arc off. Otherwise (a seam label held
     over arc-off rows, say) the batch is filtered to its arc-on rows."""
-    n = len(in_run)
     # past the first row, the arc state changes only where a run starts
-    if n > 1:
-        flips = (in_run.slice(1) != in_run.slice(0, n - 1)).arg_true().to_numpy().astype(np.int64) + 1
-        if len(flips) and not np.isin(flips, new).all():
-            return False
+    if len(flips) and not np.isin(flips, new).all():
+        return False
     if len(new) and new[0] == 0:
         return True
     carried = carry is not None and carry.height > 0 and int(carry.get_column("_key")[-1]) == first_key
@@ -624,21 +629,21 @@ def aggregate_samples(samples: Samples, arc: ArcSettings, chunk_rows: int | None
                 new = np.union1d(chg["seam"], chg["serial"]) if "serial" in names else chg["seam"]
                 keys = _run_keys(new, n, key_base)
                 in_run = b.get_column("_arc") & txt.get_column("seam").is_not_null()
+                flips = _flips(in_run)
                 # the runs starting in this batch are numbered key_base, key_base + 1, ..., keys[-1]
                 starts = pl.Series("_key", np.arange(key_base, int(keys[-1]) + 1, dtype=np.int64))
                 label_rows.append(pl.DataFrame([starts, _own(txt.get_column("seam").gather(new)),
                                                 (_own(txt.get_column("serial").gather(new)) if "serial" in names
                                                  else pl.Series("serial", [None] * len(starts), dtype=pl.String))]))
             else:
-                arc_on = b.get_column("_arc")
-                first = pl.Series([bool(arc_on[0]) != last_arc if offset else True])
-                new = pl.concat([first, arc_on.slice(1) != arc_on.slice(0, n - 1)]) if n > 1 else first
-                new = new.arg_true().to_numpy().astype(np.int64)
+                in_run = b.get_column("_arc")
+                # a run starts where the arc state changes (the first row: against the last batch's)
+                flips = _flips(in_run)
+                new = np.concatenate([[0], flips]) if bool(in_run[0]) != last_arc or not offset else flips
                 keys = _run_keys(new, n, key_base)
-                in_run = arc_on
             key_base = int(keys[-1]) + 1
             last_arc = bool(b.get_column("_arc")[-1])
-            whole = _whole_runs(in_run, new, int(keys[0]), carry)
+            whole = _whole_runs(in_run, flips, new, int(keys[0]), carry)
             b = b.with_columns(keys, in_run.alias("_live")).drop("_arc")
             if not whole:
                 b = b.filter(in_run)
