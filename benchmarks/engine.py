@@ -11,7 +11,7 @@ In one process, repetitions interleaved, medians:
   nothing is decoded while it runs (its reducer thread still runs beside it).
 
 The scan's wall time on 2 cores is bounded below by (decode + engine CPU) / 2 plus start-up
-(about 0.4 s, one core): this is the budget a speed target leaves the engine. A change to the
+(about 0.5 s, one core): this is the budget a speed target leaves the engine. A change to the
 engine is judged by its CPU seconds here, the old and the new code run alternately several
 times (the same code moves 10-15 % between runs on the development VM; DEVELOPERS.md), not by
 a single wall time of a whole scan. A measurement, not a test.
