@@ -88,9 +88,10 @@ def _changes(s: pl.Series, before: str | None, first_batch: bool, views: bool = 
     candidates = None
     if views and s.n_chunks() == 1:
         arr = s.to_arrow(compat_level=pl.CompatLevel.newest())
-        views = np.frombuffer(arr.buffers()[1], dtype=np.uint64)[2 * arr.offset: 2 * (arr.offset + n)]
-        if int(views[0]) & 0xFFFFFFFF > _INLINE_BYTES:  # little-endian: the length, then its prefix
-            ne = views[2:] != views[:-2]
+        # each row's 16-byte view as two 64-bit words
+        words = np.frombuffer(arr.buffers()[1], dtype=np.uint64)[2 * arr.offset: 2 * (arr.offset + n)]
+        if int(words[0]) & 0xFFFFFFFF > _INLINE_BYTES:  # little-endian: the length, then its prefix
+            ne = words[2:] != words[:-2]
             differs = ne[0::2] | ne[1::2]  # row j + 1 against row j
             if s.null_count():
                 valid = s.is_not_null().to_numpy()
